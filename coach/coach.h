@@ -79,7 +79,7 @@ void coach_config_default(coach_config *cfg);
 
 /* ---- results ----------------------------------------------------------- */
 
-#define COACH_MAX_TERMS 12
+#define COACH_MAX_TERMS 16
 #define COACH_MAX_HINTS 3
 #define COACH_HINT_LEN 96
 
@@ -144,6 +144,11 @@ typedef struct coach_result {
     int nhints;
     char hints[COACH_MAX_HINTS][COACH_HINT_LEN]; /* worst first, NUL-terminated */
 } coach_result;
+
+/* Plain word for a colourfulness M, by the categories of Hasler &
+ * Suesstrunk 2003 (Table 2: 0 not, 15 slightly, 33 moderately, 45 averagely,
+ * 59 quite, 82 highly, 109 extremely colourful).  Static string. */
+const char *coach_colourfulness_word(double m);
 
 /* ---- the analyzer ------------------------------------------------------ */
 

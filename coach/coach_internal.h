@@ -14,7 +14,7 @@ typedef struct coach_aimg {
     int scale;           /* full-resolution pixels per analysis pixel (box)  */
     const float *luma;   /* 8-bit gamma-encoded luma units 0..255 (BT.709)   */
     const float *r, *g, *b; /* 8-bit sRGB units 0..255                      */
-    const float *lap_sq; /* mean of L^2 over the block, L = full-res 3x3 Laplacian of 8-bit luma (0 on the frame's 1-px border) */
+    const float *lap_sq; /* mean of L^2 over the block, L = full-res 3x3 Laplacian of 8-bit luma (border pixels use reflect-101, OpenCV's default) */
     const float *lap;    /* mean of L over the block                         */
 } coach_aimg;
 
@@ -31,5 +31,126 @@ void coach_compose_reset(coach_compose *c);
  * Must not allocate. */
 void coach_compose_run(coach_compose *c, const coach_aimg *img, int full_w, int full_h,
                        double t, const coach_config *cfg, coach_result *out);
+
+/* ---- tone pass (tone.c) ------------------------------------------------ */
+
+#define COACH_AIMG_TARGET_W 320 /* analysis width: scale = max(1, w / this)  */
+#define COACH_MIN_DIM 8         /* frames smaller than this are refused       */
+#define COACH_MAX_DIM 16384     /* keeps every fixed-width accumulator exact  */
+#define COACH_CLIP_HIGH 250     /* luma >= this counts as clipped highlight   */
+#define COACH_CLIP_LOW 5        /* luma <= this counts as clipped shadow      */
+
+typedef struct coach_tone coach_tone;
+
+/* Preallocates for frames up to max_w x max_h (0: on the first frame). */
+coach_tone *coach_tone_create(int max_w, int max_h);
+void coach_tone_destroy(coach_tone *t);
+/* 0 if the view is analysable, else -EINVAL. */
+int coach_tone_check(const coach_frame *f);
+/* Analysis image size for a frame size (the rule described at coach_aimg). */
+void coach_tone_geometry(int w, int h, int *scale, int *aw, int *ah);
+/* The full-resolution pass: fills width, height, mean_luma, exposure_ev,
+ * clip_high, clip_low, hist, colourfulness, sharpness of *out and the
+ * analysis image *img.  Allocates only when the frame is larger than any
+ * before; returns 0, -EINVAL or -ENOMEM. */
+int coach_tone_run(coach_tone *t, const coach_frame *f, coach_result *out, coach_aimg *img);
+/* sRGB decoding (IEC 61966-2-1): encoded 0..1 -> linear 0..1. */
+double coach_srgb_decode(double v);
+
+/* ---- score (score.c) --------------------------------------------------- */
+
+/* Temporal state of the score: smoothing and the ready cue. */
+typedef struct coach_score_state {
+    int have;              /* a previous frame exists                       */
+    double t_last;         /* its time, seconds                             */
+    double score;          /* smoothed score                                */
+    int ready;
+    int above;             /* score has been >= ready_enter since above_t   */
+    double above_t;
+} coach_score_state;
+
+void coach_score_reset(coach_score_state *s);
+/* Fills terms, nterms and score_raw of *r from its measurements; have_prev
+ * says whether frame-to-frame terms (steadiness) are meaningful. */
+void coach_score_terms(const coach_config *cfg, int have_prev, coach_result *r);
+/* One smoothing step: alpha = 1 - exp(-dt / tau); returns the new value. */
+double coach_smooth_step(double prev, double raw, double dt, double tau);
+/* Smoothing and ready hysteresis at time t: fills score and ready. */
+void coach_score_update(coach_score_state *s, const coach_config *cfg, double t, coach_result *r);
+/* Fills hints and nhints, worst term first (at most COACH_MAX_HINTS). */
+void coach_score_hints(const coach_config *cfg, coach_result *r);
+
+/* ---- text without stdio (json.c) --------------------------------------- */
+
+/* An snprintf-like appender: writes what fits (always NUL-terminated when
+ * n > 0) and counts the length it would need in len. */
+typedef struct coach_sbuf { char *p; size_t n, len; } coach_sbuf;
+void coach_sb_str(coach_sbuf *b, const char *s);
+void coach_sb_chr(coach_sbuf *b, char c);
+/* Fixed-point number with at most `decimals` digits after the point,
+ * trailing zeros dropped; "null" for NaN/Inf. */
+void coach_sb_num(coach_sbuf *b, double v, int decimals);
+
+/* ---- composition internals (compose*.c, level.c, saliency.c, motion.c) -- */
+
+/* Power-of-two complex FFT plan, no allocation (compose_fft.c). */
+#define COACH_FFT_MAX 128
+typedef struct coach_fft_plan {
+    int n, log2n;
+    float tw_re[COACH_FFT_MAX / 2], tw_im[COACH_FFT_MAX / 2];
+    uint16_t rev[COACH_FFT_MAX];
+} coach_fft_plan;
+/* 0, or -1 when n is not a power of two in 2..COACH_FFT_MAX. */
+int coach_fft_plan_init(coach_fft_plan *p, int n);
+/* In-place 2-D FFT of px->n x py->n interleaved complex floats (row-major);
+ * the inverse is unscaled. */
+void coach_fft2d(const coach_fft_plan *px, const coach_fft_plan *py, float *data, int inverse);
+
+/* Level and horizon from straight lines (level.c).  Coordinates are
+ * analysis pixels with pixel centres at integers. */
+typedef struct coach_level coach_level;
+typedef struct coach_level_est {
+    int has_tilt;
+    double tilt_deg;             /* + when the line's right end is higher    */
+    coach_level_source source;
+    double confidence;           /* 0..1                                     */
+    int has_horizon;
+    double horizon_a, horizon_b; /* horizon: y = a + b * x                   */
+    int nlines;                  /* lines that agreed (verticals), 1 horizon  */
+    /* The strongest Hough peak of the family used (horizontal family when no
+     * level was found), sub-bin refined, as x cos(theta) + y sin(theta) = rho
+     * with theta in [0, 180) degrees. has_peak 0 when no cell passed. */
+    int has_peak;
+    double peak_theta_deg, peak_rho;
+} coach_level_est;
+coach_level *coach_level_create(int max_w, int max_h);
+void coach_level_destroy(coach_level *l);
+void coach_level_run(coach_level *l, const float *luma, int w, int h, coach_level_est *out);
+
+/* Spectral residual saliency at COACH_SAL_N x COACH_SAL_N (saliency.c). */
+#define COACH_SAL_N 64
+typedef struct coach_saliency coach_saliency;
+typedef struct coach_salient {
+    int has_subject;
+    coach_box subject;           /* fractions of the map = of the image      */
+    double balance_lr, balance_tb;
+    unsigned edges;              /* COACH_EDGE_* bits                        */
+} coach_salient;
+coach_saliency *coach_saliency_create(int max_w, int max_h);
+void coach_saliency_destroy(coach_saliency *s);
+/* Computes the map (normalised to max 1; all 0 for a blank image) and the
+ * subject, balance and intrusions from it.  Returns the map. */
+const float *coach_saliency_run(coach_saliency *s, const float *luma, int w, int h,
+                                coach_salient *out);
+
+/* Global frame-to-frame shift by phase correlation (motion.c). */
+typedef struct coach_motion coach_motion;
+coach_motion *coach_motion_create(void);
+void coach_motion_destroy(coach_motion *m);
+void coach_motion_reset(coach_motion *m);
+/* Shift of this frame's content against the previous one, analysis pixels
+ * (+x right, +y down).  Returns 1 when measured, 0 on the first frame or
+ * when either frame has too little texture. */
+int coach_motion_run(coach_motion *m, const float *luma, int w, int h, double *dx, double *dy);
 
 #endif

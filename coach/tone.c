@@ -1,0 +1,549 @@
+/* The tone pass: one fused, row-wise walk over the full-resolution frame.
+ *
+ * For every row it unpacks the pixel format into planar 8-bit R', G', B' and
+ * luma rows (small, L1-resident), then
+ *   - counts the luma histogram (clip fractions come from it),
+ *   - sums linear relative luminance through 256-entry sRGB LUTs (exposure),
+ *   - sums R-G and (R+G)/2-B and their squares (colourfulness),
+ *   - adds the row into per-column block accumulators (analysis image),
+ *   - and, one row behind, evaluates the 3x3 Laplacian of luma from a 3-row
+ *     ring and sums L and L^2 (sharpness, and the lap planes).
+ * Every loop but the histogram/LUT one is branch-free integer work over
+ * contiguous arrays so the compiler can vectorise it; nothing is divided or
+ * converted to float per pixel.  The frame is read exactly once.
+ *
+ * Border rule of the Laplacian: OpenCV's default, BORDER_REFLECT_101 (the
+ * row/column outside the frame mirrors the one inside, without repeating the
+ * edge: x = -1 reads x = 1).  So the variance is taken over all w*h pixels
+ * and equals cv2.Laplacian(luma, cv2.CV_64F).var() exactly, not just within
+ * a tolerance; tests/check_laplacian.sh checks that.  The lap planes of the
+ * analysis image use the same values.
+ */
+#include <errno.h>
+#include <math.h>
+#include <stdlib.h>
+#include <string.h>
+
+#include "coach/coach_internal.h"
+
+/* BT.709 luma weights (ITU-R BT.709-6 item 3.2) in 1/65536 units; they add
+ * up to exactly 65536 so 255,255,255 maps to 255. */
+enum { LW_R = 13933, LW_G = 46871, LW_B = 4732 };
+
+/* The Laplacian's L^2 sums run in int32 over chunks short enough that
+ * CHUNK * 1020^2 cannot overflow. */
+#define LAP_CHUNK 2048
+
+struct coach_tone {
+    int cap_w;                 /* row buffers sized for this width        */
+    size_t cap_plane;          /* floats per analysis plane               */
+    uint8_t *r, *g, *b;        /* current row, planar                     */
+    uint8_t *ring;             /* 3 luma rows                             */
+    int16_t *lap;              /* Laplacian of one row                    */
+    uint16_t *acc;             /* 4 * cap_w: block column sums r, g, b, y */
+    int32_t *accl;             /* block column sums of L                  */
+    int32_t *accq;             /* block column sums of L^2                */
+    float *planes;             /* 6 * cap_plane: luma, r, g, b, lap, lap_sq */
+    uint32_t hist4[4][256];    /* 4 interleaved histograms: no store stalls */
+    uint32_t lin[3][256];      /* K_c * sRGB-decoded(v) * 2^24, c = R,G,B */
+    uint32_t lin_grey[256];    /* sRGB-decoded(v) * 2^24                  */
+};
+
+double coach_srgb_decode(double v)
+{
+    /* IEC 61966-2-1:1999, 5.2 (inverse of the sRGB transfer). */
+    return v <= 0.04045 ? v / 12.92 : pow((v + 0.055) / 1.055, 2.4);
+}
+
+static void *xalloc(size_t n)
+{
+    /* 64-byte alignment helps the vector loops; round the size up as C11's
+     * aligned_alloc requires. */
+    return aligned_alloc(64, (n + 63) & ~(size_t)63);
+}
+
+static void free_bufs(coach_tone *t)
+{
+    free(t->r);
+    free(t->ring);
+    free(t->lap);
+    free(t->acc);
+    free(t->accl);
+    free(t->accq);
+    free(t->planes);
+    t->r = t->ring = NULL;
+    t->lap = NULL;
+    t->acc = NULL;
+    t->accl = t->accq = NULL;
+    t->planes = NULL;
+    t->cap_w = 0;
+    t->cap_plane = 0;
+}
+
+static int grow_rows(coach_tone *t, int w)
+{
+    if (w <= t->cap_w)
+        return 0;
+    free(t->r);
+    free(t->ring);
+    free(t->lap);
+    free(t->acc);
+    free(t->accl);
+    free(t->accq);
+    size_t W = (size_t)w + 64; /* slack: loops may read a little past w */
+    t->r = xalloc(3 * W);
+    t->ring = xalloc(3 * W);
+    t->lap = xalloc(W * sizeof(int16_t));
+    t->acc = xalloc(4 * W * sizeof(uint16_t));
+    t->accl = xalloc(W * sizeof(int32_t));
+    t->accq = xalloc(W * sizeof(int32_t));
+    if (!t->r || !t->ring || !t->lap || !t->acc || !t->accl || !t->accq) {
+        free_bufs(t);
+        return -ENOMEM;
+    }
+    t->g = t->r + W;
+    t->b = t->g + W;
+    t->cap_w = w;
+    return 0;
+}
+
+static int grow_planes(coach_tone *t, size_t n)
+{
+    if (n <= t->cap_plane)
+        return 0;
+    float *p = xalloc(6 * n * sizeof(float));
+    if (!p)
+        return -ENOMEM;
+    free(t->planes);
+    t->planes = p;
+    t->cap_plane = n;
+    return 0;
+}
+
+void coach_tone_geometry(int w, int h, int *scale, int *aw, int *ah)
+{
+    int s = w / COACH_AIMG_TARGET_W;
+    if (s < 1)
+        s = 1;
+    *scale = s;
+    *aw = w / s;
+    *ah = h / s;
+}
+
+coach_tone *coach_tone_create(int max_w, int max_h)
+{
+    coach_tone *t = calloc(1, sizeof(*t));
+    if (!t)
+        return NULL;
+    static const double k[3] = { 0.2126, 0.7152, 0.0722 }; /* BT.709-6 3.2 */
+    for (int v = 0; v < 256; v++) {
+        double lin = coach_srgb_decode(v / 255.0);
+        for (int c = 0; c < 3; c++)
+            t->lin[c][v] = (uint32_t)lrint(k[c] * lin * 16777216.0);
+        t->lin_grey[v] = (uint32_t)lrint(lin * 16777216.0);
+    }
+    if (max_w > 0 && max_h > 0) {
+        int s, aw, ah;
+        coach_tone_geometry(max_w, max_h, &s, &aw, &ah);
+        if (grow_rows(t, max_w) || grow_planes(t, (size_t)aw * ah)) {
+            coach_tone_destroy(t);
+            return NULL;
+        }
+    }
+    return t;
+}
+
+void coach_tone_destroy(coach_tone *t)
+{
+    if (!t)
+        return;
+    free_bufs(t);
+    free(t);
+}
+
+/* ---- row unpacking: planar R', G', B' and 8-bit luma ------------------- */
+
+static inline uint8_t luma709(unsigned r, unsigned g, unsigned b)
+{
+    return (uint8_t)((LW_R * r + LW_G * g + LW_B * b + 32768u) >> 16);
+}
+
+static void unpack_rgb(const uint8_t *restrict p, int w, int step, int ri, int bi,
+                       uint8_t *restrict r, uint8_t *restrict g, uint8_t *restrict b,
+                       uint8_t *restrict y)
+{
+    for (int x = 0; x < w; x++) {
+        unsigned R = p[step * x + ri], G = p[step * x + 1], B = p[step * x + bi];
+        r[x] = (uint8_t)R;
+        g[x] = (uint8_t)G;
+        b[x] = (uint8_t)B;
+        y[x] = luma709(R, G, B);
+    }
+}
+
+/* Y'CbCr -> R'G'B' in 1/16384 units, per ITU-R BT.601-7 / BT.709-6:
+ * E'R = E'Y + 2(1-Kr) Cr, E'B = E'Y + 2(1-Kb) Cb,
+ * E'G = E'Y - 2Kr(1-Kr)/Kg Cr - 2Kb(1-Kb)/Kg Cb; limited range maps
+ * Y' 16..235 and C 16..240 onto the full 0..255 / -127.5..127.5. */
+typedef struct yuv_coef { int ky, y0, cr_r, cb_b, cr_g, cb_g; } yuv_coef;
+
+static yuv_coef yuv_coefs(coach_matrix m, coach_range rg)
+{
+    double kr = m == COACH_MATRIX_BT709 ? 0.2126 : 0.299;
+    double kb = m == COACH_MATRIX_BT709 ? 0.0722 : 0.114;
+    double kg = 1.0 - kr - kb;
+    double sy = rg == COACH_RANGE_FULL ? 1.0 : 255.0 / 219.0;
+    double sc = rg == COACH_RANGE_FULL ? 1.0 : 255.0 / 224.0;
+    yuv_coef c;
+    c.ky = (int)lrint(sy * 16384);
+    c.y0 = rg == COACH_RANGE_FULL ? 0 : 16;
+    c.cr_r = (int)lrint(2 * (1 - kr) * sc * 16384);
+    c.cb_b = (int)lrint(2 * (1 - kb) * sc * 16384);
+    c.cr_g = (int)lrint(2 * kr * (1 - kr) / kg * sc * 16384);
+    c.cb_g = (int)lrint(2 * kb * (1 - kb) / kg * sc * 16384);
+    return c;
+}
+
+static inline uint8_t clamp8_q14(int v)
+{
+    v = (v + 8192) >> 14;
+    return (uint8_t)(v < 0 ? 0 : v > 255 ? 255 : v);
+}
+
+/* Two pixels sharing one chroma pair. */
+static inline void yuv_pair(const yuv_coef *c, int Y0, int Y1, int U, int V, uint8_t *r,
+                            uint8_t *g, uint8_t *b, uint8_t *y)
+{
+    int cb = U - 128, cr = V - 128;
+    int dr = c->cr_r * cr, db = c->cb_b * cb, dg = -c->cr_g * cr - c->cb_g * cb;
+    int y0 = (Y0 - c->y0) * c->ky, y1 = (Y1 - c->y0) * c->ky;
+    y[0] = clamp8_q14(y0);
+    y[1] = clamp8_q14(y1);
+    r[0] = clamp8_q14(y0 + dr);
+    r[1] = clamp8_q14(y1 + dr);
+    g[0] = clamp8_q14(y0 + dg);
+    g[1] = clamp8_q14(y1 + dg);
+    b[0] = clamp8_q14(y0 + db);
+    b[1] = clamp8_q14(y1 + db);
+}
+
+static void unpack_yuyv(const uint8_t *restrict p, int w, const yuv_coef *c, uint8_t *restrict r,
+                        uint8_t *restrict g, uint8_t *restrict b, uint8_t *restrict y)
+{
+    for (int x = 0; x + 1 < w; x += 2, p += 4)
+        yuv_pair(c, p[0], p[2], p[1], p[3], r + x, g + x, b + x, y + x);
+}
+
+static void unpack_nv12(const uint8_t *restrict py, const uint8_t *restrict pc, int w,
+                        const yuv_coef *c, uint8_t *restrict r, uint8_t *restrict g,
+                        uint8_t *restrict b, uint8_t *restrict y)
+{
+    for (int x = 0; x + 1 < w; x += 2)
+        yuv_pair(c, py[x], py[x + 1], pc[x], pc[x + 1], r + x, g + x, b + x, y + x);
+}
+
+/* ---- per-row statistics ------------------------------------------------ */
+
+typedef struct tone_sums {
+    uint64_t lin;              /* linear luminance, 2^24 units            */
+    int64_t s_rg, s_yb;        /* sums of R-G and R+G-2B                  */
+    uint64_t q_rg, q_yb;       /* sums of their squares                   */
+    int64_t s_l;               /* sum of L                                */
+    uint64_t q_l;              /* sum of L^2                              */
+} tone_sums;
+
+static void hist_lin_row(coach_tone *t, const uint8_t *restrict y, const uint8_t *restrict r,
+                         const uint8_t *restrict g, const uint8_t *restrict b, int w, int grey,
+                         tone_sums *s)
+{
+    uint32_t *h0 = t->hist4[0], *h1 = t->hist4[1], *h2 = t->hist4[2], *h3 = t->hist4[3];
+    uint64_t acc = 0;
+    int x = 0;
+    if (grey) {
+        const uint32_t *lg = t->lin_grey;
+        for (; x + 4 <= w; x += 4) {
+            h0[y[x]]++;
+            h1[y[x + 1]]++;
+            h2[y[x + 2]]++;
+            h3[y[x + 3]]++;
+            acc += (uint64_t)lg[y[x]] + lg[y[x + 1]] + lg[y[x + 2]] + lg[y[x + 3]];
+        }
+        for (; x < w; x++) {
+            h0[y[x]]++;
+            acc += lg[y[x]];
+        }
+    } else {
+        const uint32_t *lr = t->lin[0], *lgr = t->lin[1], *lb = t->lin[2];
+        for (; x + 4 <= w; x += 4) {
+            h0[y[x]]++;
+            h1[y[x + 1]]++;
+            h2[y[x + 2]]++;
+            h3[y[x + 3]]++;
+            /* each term < 2^24, four pixels < 2^27: uint32 is enough */
+            uint32_t a = lr[r[x]] + lgr[g[x]] + lb[b[x]] + lr[r[x + 1]] + lgr[g[x + 1]] +
+                         lb[b[x + 1]];
+            uint32_t c = lr[r[x + 2]] + lgr[g[x + 2]] + lb[b[x + 2]] + lr[r[x + 3]] +
+                         lgr[g[x + 3]] + lb[b[x + 3]];
+            acc += (uint64_t)a + c;
+        }
+        for (; x < w; x++) {
+            h0[y[x]]++;
+            acc += (uint64_t)lr[r[x]] + lgr[g[x]] + lb[b[x]];
+        }
+    }
+    s->lin += acc;
+}
+
+static void colour_row(const uint8_t *restrict r, const uint8_t *restrict g,
+                       const uint8_t *restrict b, int w, tone_sums *s)
+{
+    /* |R+G-2B| <= 510: a chunk of 4096 keeps the int32 square sums exact. */
+    for (int x0 = 0; x0 < w; x0 += 4096) {
+        int x1 = x0 + 4096 < w ? x0 + 4096 : w;
+        int32_t srg = 0, syb = 0;
+        uint32_t qrg = 0, qyb = 0;
+        for (int x = x0; x < x1; x++) {
+            int rg = (int)r[x] - (int)g[x];
+            int yb = (int)r[x] + (int)g[x] - 2 * (int)b[x];
+            srg += rg;
+            syb += yb;
+            qrg += (uint32_t)(rg * rg);
+            qyb += (uint32_t)(yb * yb);
+        }
+        s->s_rg += srg;
+        s->s_yb += syb;
+        s->q_rg += qrg;
+        s->q_yb += qyb;
+    }
+}
+
+/* First row of a block assigns, later rows add: no clearing pass. */
+static void acc_colour(uint16_t *restrict acc, const uint8_t *restrict r,
+                       const uint8_t *restrict g, const uint8_t *restrict b,
+                       const uint8_t *restrict y, int n, int W, int first)
+{
+    uint16_t *ar = acc, *ag = acc + W, *ab = acc + 2 * W, *ay = acc + 3 * W;
+    if (first) {
+        for (int x = 0; x < n; x++) {
+            ar[x] = r[x];
+            ag[x] = g[x];
+            ab[x] = b[x];
+            ay[x] = y[x];
+        }
+    } else {
+        for (int x = 0; x < n; x++) {
+            ar[x] = (uint16_t)(ar[x] + r[x]);
+            ag[x] = (uint16_t)(ag[x] + g[x]);
+            ab[x] = (uint16_t)(ab[x] + b[x]);
+            ay[x] = (uint16_t)(ay[x] + y[x]);
+        }
+    }
+}
+
+static void flush_u16(const uint16_t *restrict acc, int scale, int aw, float k,
+                      float *restrict out)
+{
+    for (int ax = 0; ax < aw; ax++) {
+        uint32_t s = 0;
+        const uint16_t *a = acc + (size_t)ax * scale;
+        for (int i = 0; i < scale; i++)
+            s += a[i];
+        out[ax] = (float)s * k;
+    }
+}
+
+static void flush_i32(const int32_t *restrict acc, int scale, int aw, float k,
+                      float *restrict out)
+{
+    for (int ax = 0; ax < aw; ax++) {
+        int64_t s = 0;
+        const int32_t *a = acc + (size_t)ax * scale;
+        for (int i = 0; i < scale; i++)
+            s += a[i];
+        out[ax] = (float)((double)s * k);
+    }
+}
+
+/* Laplacian [0 1 0; 1 -4 1; 0 1 0] of row c with the rows above (u) and
+ * below (d), reflect-101 at the left and right ends. */
+static void lap_row(const uint8_t *restrict u, const uint8_t *restrict c,
+                    const uint8_t *restrict d, int w, int16_t *restrict L)
+{
+    L[0] = (int16_t)(u[0] + d[0] + 2 * c[1] - 4 * c[0]);
+    for (int x = 1; x < w - 1; x++)
+        L[x] = (int16_t)(u[x] + d[x] + c[x - 1] + c[x + 1] - 4 * c[x]);
+    L[w - 1] = (int16_t)(u[w - 1] + d[w - 1] + 2 * c[w - 2] - 4 * c[w - 1]);
+}
+
+static void lap_sums(const int16_t *restrict L, int w, tone_sums *s)
+{
+    for (int x0 = 0; x0 < w; x0 += LAP_CHUNK) {
+        int x1 = x0 + LAP_CHUNK < w ? x0 + LAP_CHUNK : w;
+        int32_t sl = 0, ql = 0;
+        for (int x = x0; x < x1; x++) {
+            sl += L[x];
+            ql += (int32_t)L[x] * L[x];
+        }
+        s->s_l += sl;
+        s->q_l += (uint32_t)ql;
+    }
+}
+
+static void acc_lap(int32_t *restrict al, int32_t *restrict aq, const int16_t *restrict L, int n,
+                    int first)
+{
+    if (first) {
+        for (int x = 0; x < n; x++) {
+            al[x] = L[x];
+            aq[x] = (int32_t)L[x] * L[x];
+        }
+    } else {
+        for (int x = 0; x < n; x++) {
+            al[x] += L[x];
+            aq[x] += (int32_t)L[x] * L[x];
+        }
+    }
+}
+
+/* ---- the pass ---------------------------------------------------------- */
+
+int coach_tone_check(const coach_frame *f)
+{
+    if (!f || !f->data || f->w < COACH_MIN_DIM || f->h < COACH_MIN_DIM ||
+        f->w > COACH_MAX_DIM || f->h > COACH_MAX_DIM)
+        return -EINVAL;
+    int bpp = coach_format_bpp(f->format);
+    if (bpp == 0 || f->stride < f->w * bpp)
+        return -EINVAL;
+    if ((f->format == COACH_FMT_YUYV || f->format == COACH_FMT_NV12) && (f->w & 1))
+        return -EINVAL;
+    if (f->format == COACH_FMT_NV12 && f->stride2 != 0 && f->stride2 < f->w)
+        return -EINVAL;
+    return 0;
+}
+
+int coach_tone_run(coach_tone *t, const coach_frame *f, coach_result *out, coach_aimg *img)
+{
+    int err = coach_tone_check(f);
+    if (err)
+        return err;
+    const int w = f->w, h = f->h;
+    int scale, aw, ah;
+    coach_tone_geometry(w, h, &scale, &aw, &ah);
+    if ((err = grow_rows(t, w)) || (err = grow_planes(t, (size_t)aw * ah)))
+        return err;
+
+    const size_t W = (size_t)t->cap_w + 64, P = (size_t)aw * ah;
+    float *pl_y = t->planes, *pl_r = pl_y + P, *pl_g = pl_r + P, *pl_b = pl_g + P;
+    float *pl_l = pl_b + P, *pl_q = pl_l + P;
+    const int bw = aw * scale, bh = ah * scale; /* part covered by blocks */
+    const float kblk = 1.0f / (float)(scale * scale);
+    const int grey = f->format == COACH_FMT_GREY;
+    const yuv_coef yc = yuv_coefs(f->matrix, f->range);
+    const uint8_t *plane2 = f->data2 ? f->data2 : f->data + (size_t)f->stride * h;
+    const int stride2 = f->stride2 ? f->stride2 : f->stride;
+
+    memset(t->hist4, 0, sizeof(t->hist4));
+    tone_sums s = { 0 };
+    uint8_t *ring[3] = { t->ring, t->ring + W, t->ring + 2 * W };
+
+    for (int y = 0; y <= h; y++) {
+        if (y < h) {
+            const uint8_t *p = f->data + (size_t)f->stride * y;
+            uint8_t *yr = ring[y % 3];
+            uint8_t *r = t->r, *g = t->g, *b = t->b;
+            switch (f->format) {
+            case COACH_FMT_RGB24: unpack_rgb(p, w, 3, 0, 2, r, g, b, yr); break;
+            case COACH_FMT_BGR24: unpack_rgb(p, w, 3, 2, 0, r, g, b, yr); break;
+            case COACH_FMT_XRGB8888: unpack_rgb(p, w, 4, 2, 0, r, g, b, yr); break;
+            case COACH_FMT_YUYV: unpack_yuyv(p, w, &yc, r, g, b, yr); break;
+            case COACH_FMT_NV12:
+                unpack_nv12(p, plane2 + (size_t)stride2 * (y / 2), w, &yc, r, g, b, yr);
+                break;
+            default: /* GREY: the luma is the picture (full range, as V4L2 GREY) */
+                memcpy(yr, p, (size_t)w);
+                r = g = b = yr;
+                break;
+            }
+            hist_lin_row(t, yr, r, g, b, w, grey, &s);
+            if (!grey)
+                colour_row(r, g, b, w, &s);
+            if (y < bh) {
+                int yb = y % scale;
+                acc_colour(t->acc, r, g, b, yr, bw, (int)W, yb == 0);
+                if (yb == scale - 1) {
+                    size_t o = (size_t)(y / scale) * aw;
+                    flush_u16(t->acc, scale, aw, kblk, pl_r + o);
+                    flush_u16(t->acc + W, scale, aw, kblk, pl_g + o);
+                    flush_u16(t->acc + 2 * W, scale, aw, kblk, pl_b + o);
+                    flush_u16(t->acc + 3 * W, scale, aw, kblk, pl_y + o);
+                }
+            }
+        }
+        if (y == 0)
+            continue;
+        /* Laplacian of row ly = y - 1, now that the row below is known;
+         * reflect-101: row -1 reads row 1, row h reads row h - 2. */
+        int ly = y - 1;
+        const uint8_t *c = ring[ly % 3];
+        const uint8_t *u = ly > 0 ? ring[(ly - 1) % 3] : ring[(ly + 1) % 3];
+        const uint8_t *d = ly < h - 1 ? ring[(ly + 1) % 3] : ring[(ly - 1) % 3];
+        lap_row(u, c, d, w, t->lap);
+        lap_sums(t->lap, w, &s);
+        if (ly < bh) {
+            int yb = ly % scale;
+            acc_lap(t->accl, t->accq, t->lap, bw, yb == 0);
+            if (yb == scale - 1) {
+                size_t o = (size_t)(ly / scale) * aw;
+                flush_i32(t->accl, scale, aw, kblk, pl_l + o);
+                flush_i32(t->accq, scale, aw, kblk, pl_q + o);
+            }
+        }
+    }
+
+    const double n = (double)w * h;
+    uint64_t hi = 0, lo = 0;
+    for (int v = 0; v < 256; v++) {
+        uint32_t c = t->hist4[0][v] + t->hist4[1][v] + t->hist4[2][v] + t->hist4[3][v];
+        out->hist[v] = c;
+        if (v >= COACH_CLIP_HIGH)
+            hi += c;
+        if (v <= COACH_CLIP_LOW)
+            lo += c;
+    }
+    out->width = w;
+    out->height = h;
+    out->clip_high = (double)hi / n;
+    out->clip_low = (double)lo / n;
+    out->mean_luma = (double)s.lin / 16777216.0 / n;
+    /* A black frame has no exposure in stops; report the floor of the
+     * 8-bit scale (code 1 decodes to 0.0003 = -9.2 EV) rather than -inf. */
+    double floor_lin = coach_srgb_decode(0.5 / 255.0);
+    out->exposure_ev = log2((out->mean_luma > floor_lin ? out->mean_luma : floor_lin) / 0.18);
+
+    /* Hasler & Suesstrunk 2003, eq. (3): rg = R - G, yb = (R + G)/2 - B,
+     * M = sigma_rgyb + 0.3 mu_rgyb, population moments. */
+    double mrg = (double)s.s_rg / n, myb = (double)s.s_yb / (2.0 * n);
+    double vrg = (double)s.q_rg / n - mrg * mrg;
+    double vyb = (double)s.q_yb / (4.0 * n) - myb * myb;
+    if (vrg < 0)
+        vrg = 0;
+    if (vyb < 0)
+        vyb = 0;
+    out->colourfulness = sqrt(vrg + vyb) + 0.3 * sqrt(mrg * mrg + myb * myb);
+
+    double ml = (double)s.s_l / n;
+    double vl = (double)s.q_l / n - ml * ml;
+    out->sharpness = vl > 0 ? vl : 0;
+
+    img->w = aw;
+    img->h = ah;
+    img->scale = scale;
+    img->luma = pl_y;
+    img->r = pl_r;
+    img->g = pl_g;
+    img->b = pl_b;
+    img->lap = pl_l;
+    img->lap_sq = pl_q;
+    return 0;
+}
