@@ -153,4 +153,9 @@ void coach_motion_reset(coach_motion *m);
  * when either frame has too little texture. */
 int coach_motion_run(coach_motion *m, const float *luma, int w, int h, double *dx, double *dy);
 
+/* Debug views of the last coach_compose_run (the inspect subcommand): the
+ * level estimate, and the saliency map (COACH_SAL_N^2, NULL before a run). */
+const coach_level_est *coach_compose_level(const coach_compose *c);
+const float *coach_compose_saliency(const coach_compose *c);
+
 #endif

@@ -1,22 +1,250 @@
-/* PLACEHOLDER until the composition analysis lands: reports no composition
- * measurements (every has_* flag 0).  Owned by the composition work. */
+/* Composition analysis of one frame: level and horizon (level.c), subject,
+ * balance and edge intrusions (saliency.c), steadiness (motion.c), and here
+ * the parts that combine them: placement against the power points, lead
+ * room from the subject's motion relative to the scene, and subject focus.
+ */
+#include <math.h>
 #include <stdlib.h>
+#include <string.h>
 
 #include "coach/coach_internal.h"
 
-struct coach_compose { int unused; };
+/* Lead room needs the subject to move across the scene at least this fast
+ * (frame widths per second) — slower drift is not a direction of travel. */
+#define LEAD_MIN_SPEED 0.03
+/* Subject velocity smoothing time constant, seconds. */
+#define LEAD_TAU_S 0.3
+/* A centre jump larger than this (fraction of the frame) between frames
+ * means another region won: restart the track. */
+#define TRACK_JUMP 0.15
+
+struct coach_compose {
+    int max_w, max_h;
+    coach_level *level;
+    coach_saliency *sal;
+    coach_motion *motion;
+    coach_level_est last_level;
+    const float *last_map;
+    /* subject track */
+    int track_n;
+    double track_t, track_x, track_y, vx;
+    double t_prev;
+    int have_t;
+};
 
 coach_compose *coach_compose_create(int max_aw, int max_ah)
 {
-    (void)max_aw; (void)max_ah;
-    return calloc(1, sizeof(coach_compose));
+    coach_compose *c = calloc(1, sizeof *c);
+    if (!c)
+        return NULL;
+    c->max_w = max_aw;
+    c->max_h = max_ah;
+    c->level = coach_level_create(max_aw, max_ah);
+    c->sal = coach_saliency_create(max_aw, max_ah);
+    c->motion = coach_motion_create();
+    if (!c->level || !c->sal || !c->motion) {
+        coach_compose_destroy(c);
+        return NULL;
+    }
+    return c;
 }
-void coach_compose_destroy(coach_compose *c) { free(c); }
-void coach_compose_reset(coach_compose *c) { (void)c; }
+
+void coach_compose_destroy(coach_compose *c)
+{
+    if (!c)
+        return;
+    coach_level_destroy(c->level);
+    coach_saliency_destroy(c->sal);
+    coach_motion_destroy(c->motion);
+    free(c);
+}
+
+void coach_compose_reset(coach_compose *c)
+{
+    if (!c)
+        return;
+    coach_motion_reset(c->motion);
+    c->track_n = 0;
+    c->have_t = 0;
+    c->vx = 0;
+}
+
+/* Power points: the crossings of the grid lines, at 1/3 and 2/3 for the
+ * rule of thirds, at 1/phi^2 ~ 0.382 and 1/phi ~ 0.618 for the phi grid. */
+static void placement(const coach_config *cfg, int fw, int fh, coach_result *out)
+{
+    const double a = (cfg && cfg->grid == COACH_GRID_PHI) ? (3.0 - sqrt(5.0)) / 2.0 : 1.0 / 3.0;
+    const double px[4] = {a, 1 - a, a, 1 - a}, py[4] = {a, a, 1 - a, 1 - a};
+    const double diag = sqrt((double)fw * fw + (double)fh * fh);
+    double best = 1e30;
+    int bi = 0;
+    for (int i = 0; i < 4; i++) {
+        double dx = (out->subject.x - px[i]) * fw, dy = (out->subject.y - py[i]) * fh;
+        double d = sqrt(dx * dx + dy * dy);
+        if (d < best) {
+            best = d;
+            bi = i;
+        }
+    }
+    out->placement = best / diag;
+    out->placement_point = bi;
+}
+
+/* Sharpness inside the subject box against the whole analysed area, each
+ * the variance of the full-resolution Laplacian from the per-cell sums. */
+static void subject_focus(const coach_aimg *img, const coach_box *b, coach_result *out)
+{
+    if (!img->lap || !img->lap_sq)
+        return;
+    const int w = img->w, h = img->h;
+    int x0 = (int)ceil((b->x - 0.5 * b->w) * w - 0.5);
+    int x1 = (int)floor((b->x + 0.5 * b->w) * w - 0.5);
+    int y0 = (int)ceil((b->y - 0.5 * b->h) * h - 0.5);
+    int y1 = (int)floor((b->y + 0.5 * b->h) * h - 0.5);
+    if (x0 < 0) x0 = 0;
+    if (y0 < 0) y0 = 0;
+    if (x1 > w - 1) x1 = w - 1;
+    if (y1 > h - 1) y1 = h - 1;
+    if (x1 - x0 < 1 || y1 - y0 < 1)
+        return;
+    double s1 = 0, s2 = 0, b1 = 0, b2 = 0;
+    for (int y = 0; y < h; y++) {
+        const float *l1 = img->lap + (size_t)y * w, *l2 = img->lap_sq + (size_t)y * w;
+        int in_y = y >= y0 && y <= y1;
+        for (int x = 0; x < w; x++) {
+            s1 += l1[x];
+            s2 += l2[x];
+            if (in_y && x >= x0 && x <= x1) {
+                b1 += l1[x];
+                b2 += l2[x];
+            }
+        }
+    }
+    const double n = (double)w * h, nb = (double)(x1 - x0 + 1) * (y1 - y0 + 1);
+    double var_all = s2 / n - (s1 / n) * (s1 / n);
+    double var_box = b2 / nb - (b1 / nb) * (b1 / nb);
+    if (var_all <= 1e-6)
+        return;
+    out->has_subject_focus = 1;
+    out->subject_focus = (var_box > 0 ? var_box : 0) / var_all;
+}
+
+/* Lead room: the subject's horizontal velocity relative to the scene (its
+ * own image velocity minus the global shift, so panning with a moving
+ * subject still counts) decides which side is "ahead"; lead room is the
+ * share of the free width that lies ahead of the subject's box. */
+static void lead_room(coach_compose *c, double t, int measured, double shift_fx, coach_result *out)
+{
+    if (!out->has_subject) {
+        c->track_n = 0;
+        return;
+    }
+    const double x = out->subject.x, y = out->subject.y;
+    if (c->track_n > 0) {
+        double dt = t - c->track_t;
+        if (dt <= 0 || fabs(x - c->track_x) > TRACK_JUMP || fabs(y - c->track_y) > TRACK_JUMP) {
+            c->track_n = 0;
+        } else {
+            double v = (x - c->track_x - (measured ? shift_fx : 0.0)) / dt;
+            double al = 1.0 - exp(-dt / LEAD_TAU_S);
+            c->vx = c->track_n == 1 ? v : c->vx + al * (v - c->vx);
+        }
+    }
+    c->track_n++;
+    c->track_t = t;
+    c->track_x = x;
+    c->track_y = y;
+    if (c->track_n < 3 || fabs(c->vx) < LEAD_MIN_SPEED)
+        return;
+    double left = x - 0.5 * out->subject.w, right = 1.0 - (x + 0.5 * out->subject.w);
+    if (left < 0) left = 0;
+    if (right < 0) right = 0;
+    double ahead = c->vx > 0 ? right : left, behind = c->vx > 0 ? left : right;
+    if (ahead + behind <= 0)
+        return;
+    out->has_lead_room = 1;
+    out->lead_room = ahead / (ahead + behind);
+}
+
 void coach_compose_run(coach_compose *c, const coach_aimg *img, int full_w, int full_h,
                        double t, const coach_config *cfg, coach_result *out)
 {
-    (void)c; (void)img; (void)full_w; (void)full_h; (void)t; (void)cfg;
     out->has_tilt = out->has_horizon = out->has_subject = 0;
     out->has_lead_room = out->has_subject_focus = 0;
+    out->tilt_deg = out->tilt_confidence = out->horizon_y = 0;
+    out->level_source = COACH_LEVEL_NONE;
+    out->placement = 0;
+    out->placement_point = 0;
+    out->balance_lr = out->balance_tb = 0;
+    out->edge_intrusions = 0;
+    out->lead_room = 0;
+    out->motion_px_s = 0;
+    out->subject_focus = 0;
+    memset(&out->subject, 0, sizeof out->subject);
+    if (!c || !img || !img->luma || img->w < 16 || img->h < 16 || img->w > c->max_w ||
+        img->h > c->max_h || full_w < 1 || full_h < 1)
+        return;
+    const int s = img->scale > 0 ? img->scale : 1;
+    if (c->have_t && t < c->t_prev)
+        coach_compose_reset(c);
+
+    /* Level and horizon. */
+    coach_level_est *le = &c->last_level;
+    coach_level_run(c->level, img->luma, img->w, img->h, le);
+    if (le->has_tilt) {
+        out->has_tilt = 1;
+        out->tilt_deg = le->tilt_deg;
+        out->level_source = le->source;
+        out->tilt_confidence = le->confidence;
+    }
+    if (le->has_horizon) {
+        /* The vertical centre line x = full_w / 2 in analysis pixels, whose
+         * pixel i covers full-resolution columns [i*s, (i+1)*s). */
+        double xa = 0.5 * full_w / s - 0.5;
+        double ya = le->horizon_a + le->horizon_b * xa;
+        double yf = (ya + 0.5) * s / full_h;
+        if (yf >= 0 && yf <= 1) {
+            out->has_horizon = 1;
+            out->horizon_y = yf;
+        }
+    }
+
+    /* Subject, balance, intrusions.  The analysis image covers
+     * w*s x h*s full-resolution pixels (the remainder is cut): map its
+     * fractions back onto the whole frame. */
+    coach_salient sa;
+    c->last_map = coach_saliency_run(c->sal, img->luma, img->w, img->h, &sa);
+    const double fx = (double)img->w * s / full_w, fy = (double)img->h * s / full_h;
+    out->balance_lr = sa.balance_lr;
+    out->balance_tb = sa.balance_tb;
+    out->edge_intrusions = sa.edges;
+    if (sa.has_subject) {
+        out->has_subject = 1;
+        out->subject.x = sa.subject.x * fx;
+        out->subject.y = sa.subject.y * fy;
+        out->subject.w = sa.subject.w * fx;
+        out->subject.h = sa.subject.h * fy;
+        placement(cfg, full_w, full_h, out);
+        subject_focus(img, &sa.subject, out);
+    }
+
+    /* Steadiness. */
+    double dx = 0, dy = 0;
+    int measured = coach_motion_run(c->motion, img->luma, img->w, img->h, &dx, &dy);
+    if (measured && c->have_t && t > c->t_prev)
+        out->motion_px_s = sqrt(dx * dx + dy * dy) * s / (t - c->t_prev);
+    lead_room(c, t, measured, dx * s / full_w, out);
+    c->t_prev = t;
+    c->have_t = 1;
+}
+
+/* Debug views for the inspect subcommand. */
+const coach_level_est *coach_compose_level(const coach_compose *c)
+{
+    return c ? &c->last_level : NULL;
+}
+
+const float *coach_compose_saliency(const coach_compose *c)
+{
+    return c ? c->last_map : NULL;
 }

@@ -1,0 +1,564 @@
+/* Level (camera roll) and horizon from straight lines on the analysis luma.
+ *
+ * Method:
+ *  1. Sobel gradients, then thin edges by non-maximum suppression along the
+ *     gradient (Canny 1986) above a threshold that adapts to the noise.
+ *  2. A Hough transform (Duda & Hart 1972) in the normal form
+ *     rho = x cos(phi) + y sin(phi), restricted to two families of lines
+ *     within 30 degrees of horizontal and of vertical.  Each edge point votes
+ *     only for angles within a few degrees of its own gradient direction
+ *     (O'Gorman & Clowes 1976), which keeps texture and noise from building
+ *     false peaks and keeps the transform cheap.
+ *  3. Peaks are refined: a parabola through the peak cell and its neighbours
+ *     gives the sub-bin angle and offset; then along the line the edge is
+ *     located to sub-pixel precision in every column (row for the vertical
+ *     family) as the centroid of the gradient profile across the line, and a
+ *     robust weighted least-squares fit of those positions gives the final
+ *     angle.  The fit's coverage and residual decide whether the line is real.
+ *  4. The dominant near-horizontal line that crosses most of the frame (a
+ *     horizon, shoreline or table edge) gives the level; without one, the
+ *     weighted median of the near-vertical lines (walls, door frames, masts)
+ *     does.  Flat, blank and noise-only frames give no level at all.
+ */
+#include <math.h>
+#include <stdlib.h>
+#include <string.h>
+
+#include "coach/coach_internal.h"
+
+#define FAM_HALF_DEG 30.0         /* each family spans +-30 degrees          */
+#define BIN_DEG 0.5               /* Hough angle bin                          */
+#define NANG 121                  /* (2 * 30 / 0.5) + 1                       */
+#define VOTE_SPREAD 6             /* +-3 degrees around the gradient angle    */
+#define T_ABS 12.0f               /* Sobel magnitude floor, ~3-6 luma levels  */
+#define MAX_PEAKS 12
+#define MAX_VERT_LINES 10
+
+enum { FAM_H = 0, FAM_V = 1 };
+
+typedef struct peak { float votes; int ia, ir; } peak;
+
+typedef struct line_fit {
+    int ok;
+    double a, b;        /* across = a + b * along                          */
+    double tilt_deg;
+    int present;        /* positions used in the fit                       */
+    int span;           /* positions along the line inside the frame       */
+    double rms;         /* residual, pixels                                */
+    double weight;      /* summed edge strength of the fitted positions    */
+} line_fit;
+
+struct coach_level {
+    int max_w, max_h, nrho_max;
+    float *gx, *gy, *mag;
+    int *edge_idx;       /* indices of edge pixels                          */
+    float *edge_ang;     /* gradient angle of each, degrees (-180..180]     */
+    float *acc;          /* [2][NANG][nrho]                                 */
+    float *pos, *wt;     /* sub-pixel positions along one line              */
+    uint8_t *keep;
+    float cosv[2][NANG], sinv[2][NANG];
+};
+
+coach_level *coach_level_create(int max_w, int max_h)
+{
+    if (max_w < 8 || max_h < 8)
+        return NULL;
+    coach_level *l = calloc(1, sizeof *l);
+    if (!l)
+        return NULL;
+    size_t n = (size_t)max_w * max_h;
+    int nrho = (int)ceil(sqrt((double)max_w * max_w + (double)max_h * max_h)) + 3;
+    int len = max_w > max_h ? max_w : max_h;
+    l->max_w = max_w;
+    l->max_h = max_h;
+    l->nrho_max = nrho;
+    l->gx = malloc(n * sizeof(float));
+    l->gy = malloc(n * sizeof(float));
+    l->mag = malloc(n * sizeof(float));
+    l->edge_idx = malloc(n * sizeof(int));
+    l->edge_ang = malloc(n * sizeof(float));
+    l->acc = malloc((size_t)2 * NANG * nrho * sizeof(float));
+    l->pos = malloc((size_t)len * sizeof(float));
+    l->wt = malloc((size_t)len * sizeof(float));
+    l->keep = malloc((size_t)len);
+    if (!l->gx || !l->gy || !l->mag || !l->edge_idx || !l->edge_ang || !l->acc || !l->pos ||
+        !l->wt || !l->keep) {
+        coach_level_destroy(l);
+        return NULL;
+    }
+    for (int f = 0; f < 2; f++)
+        for (int i = 0; i < NANG; i++) {
+            double phi = (f == FAM_H ? 90.0 : 0.0) + (i * BIN_DEG - FAM_HALF_DEG);
+            l->cosv[f][i] = (float)cos(phi * M_PI / 180.0);
+            l->sinv[f][i] = (float)sin(phi * M_PI / 180.0);
+        }
+    return l;
+}
+
+void coach_level_destroy(coach_level *l)
+{
+    if (!l)
+        return;
+    free(l->gx);
+    free(l->gy);
+    free(l->mag);
+    free(l->edge_idx);
+    free(l->edge_ang);
+    free(l->acc);
+    free(l->pos);
+    free(l->wt);
+    free(l->keep);
+    free(l);
+}
+
+/* Sobel gradients on the interior; the 1-pixel border stays 0. Returns the
+ * edge threshold: the floor, or twice the median magnitude when noise
+ * lifts the median (for Gaussian noise most Sobel magnitudes sit below
+ * twice the median, so thin noise edges rarely pass). */
+static float gradients(coach_level *l, const float *p, int w, int h)
+{
+    uint32_t hist[64];
+    memset(hist, 0, sizeof hist);
+    memset(l->gx, 0, (size_t)w * sizeof(float));
+    memset(l->gy, 0, (size_t)w * sizeof(float));
+    memset(l->mag, 0, (size_t)w * sizeof(float));
+    memset(l->gx + (size_t)(h - 1) * w, 0, (size_t)w * sizeof(float));
+    memset(l->gy + (size_t)(h - 1) * w, 0, (size_t)w * sizeof(float));
+    memset(l->mag + (size_t)(h - 1) * w, 0, (size_t)w * sizeof(float));
+    for (int y = 1; y < h - 1; y++) {
+        const float *a = p + (size_t)(y - 1) * w, *b = a + w, *c = b + w;
+        float *gx = l->gx + (size_t)y * w, *gy = l->gy + (size_t)y * w, *m = l->mag + (size_t)y * w;
+        gx[0] = gy[0] = m[0] = 0;
+        gx[w - 1] = gy[w - 1] = m[w - 1] = 0;
+        for (int x = 1; x < w - 1; x++) {
+            float sx = (a[x + 1] - a[x - 1]) + 2.0f * (b[x + 1] - b[x - 1]) + (c[x + 1] - c[x - 1]);
+            float sy = (c[x - 1] - a[x - 1]) + 2.0f * (c[x] - a[x]) + (c[x + 1] - a[x + 1]);
+            float mm = sqrtf(sx * sx + sy * sy);
+            gx[x] = sx;
+            gy[x] = sy;
+            m[x] = mm;
+            int bin = (int)(mm * 0.5f);
+            hist[bin < 63 ? bin : 63]++;
+        }
+    }
+    uint32_t total = (uint32_t)(w - 2) * (uint32_t)(h - 2), acc = 0;
+    int med = 0;
+    while (med < 63 && acc + hist[med] < total / 2)
+        acc += hist[med++];
+    float thr = 2.0f * (2.0f * med + 1.0f);
+    return thr > T_ABS ? thr : T_ABS;
+}
+
+/* Thin edges (non-maximum suppression along the quantised gradient). */
+static int thin_edges(coach_level *l, int w, int h, float thr)
+{
+    int n = 0;
+    for (int y = 2; y < h - 2; y++) {
+        const float *m = l->mag + (size_t)y * w;
+        const float *gx = l->gx + (size_t)y * w, *gy = l->gy + (size_t)y * w;
+        for (int x = 2; x < w - 2; x++) {
+            float mm = m[x];
+            if (mm < thr)
+                continue;
+            float ax = fabsf(gx[x]), ay = fabsf(gy[x]);
+            int off;
+            if (ay <= 0.4142f * ax)
+                off = 1;                       /* gradient ~horizontal      */
+            else if (ax <= 0.4142f * ay)
+                off = w;                       /* gradient ~vertical        */
+            else if ((gx[x] > 0) == (gy[x] > 0))
+                off = w + 1;
+            else
+                off = w - 1;
+            if (mm < m[x - off] || mm <= m[x + off])
+                continue;
+            l->edge_idx[n] = y * w + x;
+            l->edge_ang[n] = atan2f(gy[x], gx[x]) * (float)(180.0 / M_PI);
+            n++;
+        }
+    }
+    return n;
+}
+
+static void vote(coach_level *l, int w, int h, int nedge, float thr, int nrho)
+{
+    const float cx = 0.5f * (w - 1), cy = 0.5f * (h - 1), roff = 0.5f * (nrho - 1);
+    const float cap = 3.0f * thr;
+    memset(l->acc, 0, (size_t)2 * NANG * nrho * sizeof(float));
+    for (int e = 0; e < nedge; e++) {
+        int idx = l->edge_idx[e];
+        float x = (float)(idx % w) - cx, y = (float)(idx / w) - cy;
+        float m = l->mag[idx];
+        float wv = m < cap ? m : cap;
+        float ang = l->edge_ang[e];
+        /* Fold the gradient direction to a line normal in [-90, 90). */
+        if (ang >= 90.0f)
+            ang -= 180.0f;
+        else if (ang < -90.0f)
+            ang += 180.0f;
+        int fam;
+        float alpha;
+        if (fabsf(ang) <= FAM_HALF_DEG + 3.0f) {
+            fam = FAM_V;
+            alpha = ang;
+        } else {
+            fam = FAM_H;
+            alpha = ang > 0 ? ang - 90.0f : ang + 90.0f;
+            if (fabsf(alpha) > FAM_HALF_DEG + 3.0f)
+                continue;
+        }
+        int ic = (int)lrintf((alpha + (float)FAM_HALF_DEG) / (float)BIN_DEG);
+        int i0 = ic - VOTE_SPREAD, i1 = ic + VOTE_SPREAD;
+        if (i0 < 0)
+            i0 = 0;
+        if (i1 > NANG - 1)
+            i1 = NANG - 1;
+        float *acc = l->acc + (size_t)fam * NANG * nrho;
+        for (int i = i0; i <= i1; i++) {
+            float r = x * l->cosv[fam][i] + y * l->sinv[fam][i] + roff;
+            int ir = (int)(r + 0.5f);
+            acc[(size_t)i * nrho + ir] += wv;
+        }
+    }
+}
+
+/* Local maxima of one family above min_votes, strongest first, then
+ * greedy suppression of peaks within +-2 degrees and +-6 pixels. */
+static int find_peaks(const coach_level *l, int fam, int nrho, float min_votes, peak *out, int maxp)
+{
+    const float *acc = l->acc + (size_t)fam * NANG * nrho;
+    peak cand[MAX_PEAKS * 2];
+    int nc = 0;
+    const int cmax = MAX_PEAKS * 2;
+    for (int i = 0; i < NANG; i++) {
+        const float *row = acc + (size_t)i * nrho;
+        for (int r = 1; r < nrho - 1; r++) {
+            float v = row[r];
+            if (v < min_votes || v < row[r - 1] || v <= row[r + 1])
+                continue;
+            if (nc == cmax && v <= cand[nc - 1].votes)
+                continue;
+            int ok = 1;
+            for (int di = -1; di <= 1 && ok; di++) {
+                int ii = i + di;
+                if (di == 0 || ii < 0 || ii >= NANG)
+                    continue;
+                const float *o = acc + (size_t)ii * nrho + r;
+                if (o[-1] > v || o[0] > v || o[1] > v)
+                    ok = 0;
+            }
+            if (!ok)
+                continue;
+            int k = nc < cmax ? nc++ : cmax - 1;
+            while (k > 0 && cand[k - 1].votes < v) {
+                cand[k] = cand[k - 1];
+                k--;
+            }
+            cand[k] = (peak){v, i, r};
+        }
+    }
+    int np = 0;
+    for (int c = 0; c < nc && np < maxp; c++) {
+        int dup = 0;
+        for (int q = 0; q < np && !dup; q++)
+            if (abs(cand[c].ia - out[q].ia) <= 4 && abs(cand[c].ir - out[q].ir) <= 6)
+                dup = 1;
+        if (!dup)
+            out[np++] = cand[c];
+    }
+    return np;
+}
+
+/* Sub-bin position of a peak from parabolas through its neighbours. */
+static void peak_subbin(const coach_level *l, int fam, int nrho, const peak *p, double *alpha_deg,
+                        double *rho_c)
+{
+    const float *acc = l->acc + (size_t)fam * NANG * nrho;
+    double da = 0, dr = 0;
+    float c = acc[(size_t)p->ia * nrho + p->ir];
+    if (p->ia > 0 && p->ia < NANG - 1) {
+        float a = acc[(size_t)(p->ia - 1) * nrho + p->ir], b = acc[(size_t)(p->ia + 1) * nrho + p->ir];
+        double den = a - 2.0 * c + b;
+        if (den < 0)
+            da = 0.5 * (a - b) / den;
+    }
+    {
+        float a = acc[(size_t)p->ia * nrho + p->ir - 1], b = acc[(size_t)p->ia * nrho + p->ir + 1];
+        double den = a - 2.0 * c + b;
+        if (den < 0)
+            dr = 0.5 * (a - b) / den;
+    }
+    *alpha_deg = (p->ia + da) * BIN_DEG - FAM_HALF_DEG;
+    *rho_c = p->ir + dr - 0.5 * (nrho - 1);
+}
+
+/* Locates the edge along a line of one family and fits it.  In the
+ * horizontal family "along" is x and "across" is y; in the vertical family
+ * the roles swap.  The line is rho = X cos(phi) + Y sin(phi) in centred
+ * coordinates.  runs: fit only the longest run of present positions
+ * (segments such as walls) rather than every present position (a horizon
+ * interrupted by a boat). */
+static void fit_line(coach_level *l, int w, int h, int fam, double alpha_deg, double rho_c,
+                     float thr, int runs, line_fit *out)
+{
+    memset(out, 0, sizeof *out);
+    const double phi = ((fam == FAM_H) ? 90.0 : 0.0) + alpha_deg;
+    const double cph = cos(phi * M_PI / 180.0), sph = sin(phi * M_PI / 180.0);
+    const double cx = 0.5 * (w - 1), cy = 0.5 * (h - 1);
+    const int nal = fam == FAM_H ? w : h, nac = fam == FAM_H ? h : w;
+    const double cal = fam == FAM_H ? cx : cy, cac = fam == FAM_H ? cy : cx;
+    /* across = cac + (rho - (along - cal) * c_al) / c_ac */
+    const double c_al = fam == FAM_H ? cph : sph, c_ac = fam == FAM_H ? sph : cph;
+    const int st_al = fam == FAM_H ? 1 : w, st_ac = fam == FAM_H ? w : 1;
+    const int R = 3, C = 2;
+    /* Polarity: the sign of the gradient along the normal on the line. */
+    double pol = 0;
+    for (int u = 2; u < nal - 2; u += 4) {
+        double v0 = cac + (rho_c - (u - cal) * c_al) / c_ac;
+        int vi = (int)lrint(v0);
+        if (vi < 2 || vi > nac - 3)
+            continue;
+        int idx = u * st_al + vi * st_ac;
+        pol += l->gx[idx] * cph + l->gy[idx] * sph;
+    }
+    const float sgn = pol >= 0 ? 1.0f : -1.0f;
+    int span = 0;
+    for (int u = 2; u < nal - 2; u++) {
+        double v0 = cac + (rho_c - (u - cal) * c_al) / c_ac;
+        int vi = (int)lrint(v0);
+        l->wt[u] = 0;
+        if (vi < 2 || vi > nac - 3)
+            continue;
+        span++;
+        float best = 0;
+        int bv = -1;
+        for (int v = vi - R; v <= vi + R; v++) {
+            if (v < 1 || v > nac - 2)
+                continue;
+            int idx = u * st_al + v * st_ac;
+            float e = sgn * (l->gx[idx] * (float)cph + l->gy[idx] * (float)sph);
+            if (e > best) {
+                best = e;
+                bv = v;
+            }
+        }
+        if (bv < 0 || best < thr)
+            continue;
+        double sw = 0, sv = 0;
+        for (int v = bv - C; v <= bv + C; v++) {
+            if (v < 1 || v > nac - 2)
+                continue;
+            int idx = u * st_al + v * st_ac;
+            float e = sgn * (l->gx[idx] * (float)cph + l->gy[idx] * (float)sph);
+            if (e <= 0)
+                continue;
+            sw += e;
+            sv += e * v;
+        }
+        l->pos[u] = (float)(sv / sw);
+        l->wt[u] = best;
+    }
+    out->span = span;
+    if (span < 8)
+        return;
+    int u0 = 2, u1 = nal - 3;
+    if (runs) {
+        /* Longest run of present positions, allowing gaps of 3. */
+        int bs = -1, be = -1, s = -1, last = -100;
+        for (int u = 2; u < nal - 2; u++) {
+            if (l->wt[u] <= 0)
+                continue;
+            if (u - last > 4)
+                s = u;
+            last = u;
+            if (s >= 0 && u - s > be - bs) {
+                bs = s;
+                be = u;
+            }
+        }
+        if (bs < 0)
+            return;
+        u0 = bs;
+        u1 = be;
+    }
+    for (int u = u0; u <= u1; u++)
+        l->keep[u] = l->wt[u] > 0;
+    /* Robust weighted least squares: refit without outliers. */
+    double a = 0, b = 0, rms = 0;
+    int used = 0;
+    for (int it = 0; it < 4; it++) {
+        double S = 0, Su = 0, Sv = 0, Suu = 0, Suv = 0;
+        used = 0;
+        for (int u = u0; u <= u1; u++) {
+            if (!l->keep[u])
+                continue;
+            double ww = l->wt[u], uu = u - cal, vv = l->pos[u];
+            S += ww;
+            Su += ww * uu;
+            Sv += ww * vv;
+            Suu += ww * uu * uu;
+            Suv += ww * uu * vv;
+            used++;
+        }
+        double den = S * Suu - Su * Su;
+        if (used < 8 || den <= 0)
+            return;
+        b = (S * Suv - Su * Sv) / den;
+        a = (Sv - b * Su) / S;
+        double sr = 0;
+        for (int u = u0; u <= u1; u++) {
+            if (!l->keep[u])
+                continue;
+            double r = l->pos[u] - (a + b * (u - cal));
+            sr += l->wt[u] * r * r;
+        }
+        rms = sqrt(sr / S);
+        double lim = 2.5 * rms > 0.5 ? 2.5 * rms : 0.5;
+        int dropped = 0;
+        for (int u = u0; u <= u1; u++) {
+            if (!l->keep[u])
+                continue;
+            double r = l->pos[u] - (a + b * (u - cal));
+            if (fabs(r) > lim) {
+                l->keep[u] = 0;
+                dropped++;
+            }
+        }
+        if (!dropped)
+            break;
+    }
+    double wsum = 0;
+    used = 0;
+    for (int u = u0; u <= u1; u++)
+        if (l->keep[u]) {
+            wsum += l->wt[u];
+            used++;
+        }
+    out->ok = 1;
+    out->a = a - b * cal;  /* back to uncentred "along" coordinates */
+    out->b = b;
+    out->present = used;
+    out->rms = rms;
+    out->weight = wsum;
+    /* Image y points down: a horizon whose right end is higher has
+     * dy/dx < 0; a vertical whose top leans left (the same camera roll)
+     * has dx/dy > 0. */
+    out->tilt_deg = (fam == FAM_H ? -atan(b) : atan(b)) * 180.0 / M_PI;
+}
+
+static double clamp01(double v) { return v < 0 ? 0 : v > 1 ? 1 : v; }
+
+static void set_peak(coach_level_est *out, int fam, double alpha_deg, double rho_c, int w, int h)
+{
+    double phi = (fam == FAM_H ? 90.0 : 0.0) + alpha_deg;
+    double c = cos(phi * M_PI / 180.0), s = sin(phi * M_PI / 180.0);
+    double rho = rho_c + 0.5 * (w - 1) * c + 0.5 * (h - 1) * s;
+    if (phi < 0) {
+        phi += 180.0;
+        rho = -rho;
+    }
+    out->has_peak = 1;
+    out->peak_theta_deg = phi;
+    out->peak_rho = rho;
+}
+
+void coach_level_run(coach_level *l, const float *luma, int w, int h, coach_level_est *out)
+{
+    memset(out, 0, sizeof *out);
+    out->source = COACH_LEVEL_NONE;
+    if (!l || w < 16 || h < 16 || w > l->max_w || h > l->max_h)
+        return;
+    const int nrho = (int)ceil(sqrt((double)w * w + (double)h * h)) + 3;
+    float thr = gradients(l, luma, w, h);
+    int nedge = thin_edges(l, w, h, thr);
+    if (nedge < 16)
+        return;
+    vote(l, w, h, nedge, thr, nrho);
+
+    /* Horizontal family: the candidate that crosses most of the width. */
+    peak pk[MAX_PEAKS];
+    int np = find_peaks(l, FAM_H, nrho, 0.3f * w * thr, pk, 4);
+    line_fit best;
+    memset(&best, 0, sizeof best);
+    double best_score = 0;
+    for (int i = 0; i < np; i++) {
+        double al, rc;
+        peak_subbin(l, FAM_H, nrho, &pk[i], &al, &rc);
+        if (i == 0)
+            set_peak(out, FAM_H, al, rc, w, h);
+        line_fit f;
+        fit_line(l, w, h, FAM_H, al, rc, thr, 0, &f);
+        if (!f.ok || f.rms > 0.75 || f.span < 0.6 * w || f.present < 0.5 * f.span ||
+            f.present < 0.4 * w)
+            continue;
+        if (f.weight > best_score) {
+            best_score = f.weight;
+            best = f;
+            set_peak(out, FAM_H, al, rc, w, h);
+        }
+    }
+    if (best.ok) {
+        out->has_tilt = 1;
+        out->tilt_deg = best.tilt_deg;
+        out->source = COACH_LEVEL_HORIZON;
+        out->has_horizon = 1;
+        out->horizon_a = best.a;
+        out->horizon_b = best.b;
+        out->nlines = 1;
+        out->confidence = clamp01((double)best.present / best.span) * clamp01(1.25 - best.rms);
+        return;
+    }
+
+    /* Vertical family: several segments, weighted median of their tilts. */
+    np = find_peaks(l, FAM_V, nrho, 0.12f * h * thr, pk, MAX_VERT_LINES);
+    double tilt[MAX_VERT_LINES], wt[MAX_VERT_LINES];
+    int nl = 0;
+    for (int i = 0; i < np; i++) {
+        double al, rc;
+        peak_subbin(l, FAM_V, nrho, &pk[i], &al, &rc);
+        if (i == 0 && !out->has_peak)
+            set_peak(out, FAM_V, al, rc, w, h);
+        line_fit f;
+        fit_line(l, w, h, FAM_V, al, rc, thr, 1, &f);
+        if (!f.ok || f.rms > 0.75 || f.present < 0.15 * h)
+            continue;
+        if (nl == 0)
+            set_peak(out, FAM_V, al, rc, w, h);
+        tilt[nl] = f.tilt_deg;
+        wt[nl] = f.weight;
+        nl++;
+    }
+    if (nl == 0)
+        return;
+    /* Weighted median (insertion sort of at most 10). */
+    for (int i = 1; i < nl; i++)
+        for (int j = i; j > 0 && tilt[j - 1] > tilt[j]; j--) {
+            double t = tilt[j]; tilt[j] = tilt[j - 1]; tilt[j - 1] = t;
+            t = wt[j]; wt[j] = wt[j - 1]; wt[j - 1] = t;
+        }
+    double tot = 0, run = 0, med = tilt[0];
+    for (int i = 0; i < nl; i++)
+        tot += wt[i];
+    for (int i = 0; i < nl; i++) {
+        run += wt[i];
+        if (run >= 0.5 * tot) {
+            med = tilt[i];
+            break;
+        }
+    }
+    /* Agreement: the weight within 1 degree of the median. */
+    double agree = 0;
+    int nagree = 0;
+    for (int i = 0; i < nl; i++)
+        if (fabs(tilt[i] - med) <= 1.0) {
+            agree += wt[i];
+            nagree++;
+        }
+    if (nl >= 2 && nagree < 2)
+        return;
+    out->has_tilt = 1;
+    out->tilt_deg = med;
+    out->source = COACH_LEVEL_VERTICALS;
+    out->nlines = nagree;
+    out->confidence = clamp01(agree / tot) * clamp01(nagree / 3.0);
+}

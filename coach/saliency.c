@@ -1,0 +1,285 @@
+/* Saliency and what follows from it: the main subject, visual balance and
+ * salient mass cut by the frame's edges.
+ *
+ * The map is the spectral residual of Hou & Zhang (CVPR 2007): at 64x64,
+ * the log amplitude spectrum minus its 3x3 local mean is the "unexpected"
+ * part of the spectrum; transformed back with the original phase, squared
+ * and smoothed, it marks what stands out from the scene's statistics.  The
+ * object map is the map above three times its mean (the paper's threshold);
+ * its connected region with the most saliency is the subject.
+ */
+#include <math.h>
+#include <stdlib.h>
+#include <string.h>
+
+#include "coach/coach_internal.h"
+
+#define N COACH_SAL_N
+#define NN (N * N)
+
+struct coach_saliency {
+    int max_w, max_h;
+    coach_fft_plan plan;
+    float *rows;           /* max_h x N: the luma resampled along x      */
+    float small[NN];       /* luma at N x N                              */
+    float cx[2 * NN];      /* complex work                               */
+    float la[NN], lb[NN];  /* log amplitude, its local mean              */
+    float map[NN];
+    float tmp[NN];
+    int16_t label[NN];
+    int16_t stack[NN];
+};
+
+coach_saliency *coach_saliency_create(int max_w, int max_h)
+{
+    if (max_w < 1 || max_h < 1)
+        return NULL;
+    coach_saliency *s = calloc(1, sizeof *s);
+    if (!s)
+        return NULL;
+    s->max_w = max_w;
+    s->max_h = max_h;
+    s->rows = malloc((size_t)max_h * N * sizeof(float));
+    if (!s->rows || coach_fft_plan_init(&s->plan, N) != 0) {
+        coach_saliency_destroy(s);
+        return NULL;
+    }
+    return s;
+}
+
+void coach_saliency_destroy(coach_saliency *s)
+{
+    if (!s)
+        return;
+    free(s->rows);
+    free(s);
+}
+
+/* Area-weighted resampling of n source samples (stride st) to N. */
+static void resample_line(const float *src, int n, int st, float *dst, int dst_st)
+{
+    const double f = (double)n / N;
+    for (int j = 0; j < N; j++) {
+        double x0 = j * f, x1 = x0 + f, acc = 0;
+        int i0 = (int)x0, i1 = (int)ceil(x1);
+        if (i1 > n)
+            i1 = n;
+        for (int i = i0; i < i1; i++) {
+            double a = i > x0 ? i : x0, b = i + 1 < x1 ? i + 1 : x1;
+            acc += (b - a) * src[(size_t)i * st];
+        }
+        dst[(size_t)j * dst_st] = (float)(acc / f);
+    }
+}
+
+/* Index with reflect-101 borders, as the usual image filters do. */
+static inline int refl(int i)
+{
+    if (i < 0)
+        return -i;
+    if (i >= N)
+        return 2 * N - 2 - i;
+    return i;
+}
+
+/* Separable 5-tap Gaussian of the paper's sigma 8 — at 5 taps almost a box. */
+static void blur5(float *m, float *tmp)
+{
+    float k[5];
+    double ks = 0;
+    for (int i = 0; i < 5; i++) {
+        k[i] = (float)exp(-(double)((i - 2) * (i - 2)) / (2.0 * 64.0));
+        ks += k[i];
+    }
+    for (int i = 0; i < 5; i++)
+        k[i] = (float)(k[i] / ks);
+    for (int y = 0; y < N; y++)
+        for (int x = 0; x < N; x++) {
+            float a = 0;
+            for (int i = 0; i < 5; i++)
+                a += k[i] * m[y * N + refl(x + i - 2)];
+            tmp[y * N + x] = a;
+        }
+    for (int y = 0; y < N; y++)
+        for (int x = 0; x < N; x++) {
+            float a = 0;
+            for (int i = 0; i < 5; i++)
+                a += k[i] * tmp[refl(y + i - 2) * N + x];
+            m[y * N + x] = a;
+        }
+}
+
+static int spectral_residual(coach_saliency *s, const float *luma, int w, int h)
+{
+    for (int y = 0; y < h; y++)
+        resample_line(luma + (size_t)y * w, w, 1, s->rows + (size_t)y * N, 1);
+    for (int x = 0; x < N; x++)
+        resample_line(s->rows + x, h, N, s->small + x, N);
+    double mean = 0, var = 0;
+    for (int i = 0; i < NN; i++)
+        mean += s->small[i];
+    mean /= NN;
+    for (int i = 0; i < NN; i++)
+        var += (s->small[i] - mean) * (s->small[i] - mean);
+    var /= NN;
+    /* A frame without structure (blank, or flat to within a luma level)
+     * has no salient region. */
+    if (var < 1.0)
+        return 0;
+    for (int i = 0; i < NN; i++) {
+        s->cx[2 * i] = s->small[i];
+        s->cx[2 * i + 1] = 0;
+    }
+    coach_fft2d(&s->plan, &s->plan, s->cx, 0);
+    for (int i = 0; i < NN; i++) {
+        float re = s->cx[2 * i], im = s->cx[2 * i + 1];
+        s->la[i] = 0.5f * logf(re * re + im * im + 1e-12f);
+    }
+    for (int y = 0; y < N; y++)
+        for (int x = 0; x < N; x++) {
+            float a = 0;
+            for (int dy = -1; dy <= 1; dy++)
+                for (int dx = -1; dx <= 1; dx++)
+                    a += s->la[refl(y + dy) * N + refl(x + dx)];
+            s->lb[y * N + x] = a * (1.0f / 9.0f);
+        }
+    for (int i = 0; i < NN; i++) {
+        float re = s->cx[2 * i], im = s->cx[2 * i + 1];
+        float mag = sqrtf(re * re + im * im);
+        float g = expf(s->la[i] - s->lb[i]);
+        if (mag > 0) {
+            s->cx[2 * i] = g * re / mag;
+            s->cx[2 * i + 1] = g * im / mag;
+        } else {
+            s->cx[2 * i] = g;
+            s->cx[2 * i + 1] = 0;
+        }
+    }
+    coach_fft2d(&s->plan, &s->plan, s->cx, 1);
+    for (int i = 0; i < NN; i++) {
+        float re = s->cx[2 * i], im = s->cx[2 * i + 1];
+        s->map[i] = re * re + im * im;
+    }
+    blur5(s->map, s->tmp);
+    float mx = 0;
+    for (int i = 0; i < NN; i++)
+        if (s->map[i] > mx)
+            mx = s->map[i];
+    if (!(mx > 0))
+        return 0;
+    for (int i = 0; i < NN; i++)
+        s->map[i] /= mx;
+    return 1;
+}
+
+/* The subject: among the 8-connected regions of the object map, the one
+ * holding the most saliency. */
+static void find_subject(coach_saliency *s, float thr, coach_salient *out)
+{
+    memset(s->label, 0, sizeof s->label);
+    int nlab = 0, best = 0;
+    double best_mass = 0, total = 0;
+    double bsx = 0, bsy = 0;
+    int bx0 = 0, by0 = 0, bx1 = 0, by1 = 0;
+    for (int i = 0; i < NN; i++) {
+        if (s->map[i] <= thr || s->label[i])
+            continue;
+        nlab++;
+        int sp = 0, x0 = N, y0 = N, x1 = -1, y1 = -1;
+        double mass = 0, sx = 0, sy = 0;
+        s->stack[sp++] = (int16_t)i;
+        s->label[i] = (int16_t)nlab;
+        while (sp) {
+            int p = s->stack[--sp], px = p % N, py = p / N;
+            double v = s->map[p] - thr;
+            mass += v;
+            sx += v * (px + 0.5);
+            sy += v * (py + 0.5);
+            if (px < x0) x0 = px;
+            if (px > x1) x1 = px;
+            if (py < y0) y0 = py;
+            if (py > y1) y1 = py;
+            for (int dy = -1; dy <= 1; dy++)
+                for (int dx = -1; dx <= 1; dx++) {
+                    int qx = px + dx, qy = py + dy;
+                    if (qx < 0 || qy < 0 || qx >= N || qy >= N)
+                        continue;
+                    int q = qy * N + qx;
+                    if (s->map[q] > thr && !s->label[q]) {
+                        s->label[q] = (int16_t)nlab;
+                        s->stack[sp++] = (int16_t)q;
+                    }
+                }
+        }
+        total += mass;
+        if (mass > best_mass) {
+            best_mass = mass;
+            best = nlab;
+            bsx = sx / mass;
+            bsy = sy / mass;
+            bx0 = x0; by0 = y0; bx1 = x1; by1 = y1;
+        }
+    }
+    (void)best;
+    /* A subject holds at least a third of the salient mass; when the mass
+     * is spread over many small regions (texture, noise) there is none. */
+    if (nlab == 0 || best_mass < total / 3.0)
+        return;
+    out->has_subject = 1;
+    out->subject.x = bsx / N;
+    out->subject.y = bsy / N;
+    out->subject.w = (double)(bx1 - bx0 + 1) / N;
+    out->subject.h = (double)(by1 - by0 + 1) / N;
+    /* Intrusions: object-map regions that reach a border and carry at
+     * least a tenth of the salient mass. */
+    for (int lab = 1; lab <= nlab; lab++) {
+        double mass = 0;
+        unsigned sides = 0;
+        for (int i = 0; i < NN; i++) {
+            if (s->label[i] != lab)
+                continue;
+            int px = i % N, py = i / N;
+            mass += s->map[i] - thr;
+            if (px == 0) sides |= COACH_EDGE_LEFT;
+            if (px == N - 1) sides |= COACH_EDGE_RIGHT;
+            if (py == 0) sides |= COACH_EDGE_TOP;
+            if (py == N - 1) sides |= COACH_EDGE_BOTTOM;
+        }
+        if (sides && mass >= 0.1 * total)
+            out->edges |= sides;
+    }
+}
+
+const float *coach_saliency_run(coach_saliency *s, const float *luma, int w, int h,
+                                coach_salient *out)
+{
+    memset(out, 0, sizeof *out);
+    if (!s || w < 1 || h < 1 || w > s->max_w || h > s->max_h)
+        return NULL;
+    if (!spectral_residual(s, luma, w, h)) {
+        memset(s->map, 0, sizeof s->map);
+        return s->map;
+    }
+    double mean = 0;
+    for (int i = 0; i < NN; i++)
+        mean += s->map[i];
+    mean /= NN;
+    /* Balance as a lever: saliency above the mean, weighted by its signed
+     * distance from the centre (-1 at the left/top edge, +1 at the other). */
+    double m = 0, mx = 0, my = 0;
+    for (int y = 0; y < N; y++)
+        for (int x = 0; x < N; x++) {
+            double v = s->map[y * N + x] - mean;
+            if (v <= 0)
+                continue;
+            m += v;
+            mx += v * ((x + 0.5) * 2.0 / N - 1.0);
+            my += v * ((y + 0.5) * 2.0 / N - 1.0);
+        }
+    if (m > 0) {
+        out->balance_lr = mx / m;
+        out->balance_tb = my / m;
+    }
+    find_subject(s, (float)(3.0 * mean), out);
+    return s->map;
+}
