@@ -26,6 +26,19 @@ typedef struct ovl_opts {
     int tone;                /* ready tone on (SDL audio)                   */
     const char *font_path;   /* NULL: find a sans font through fontconfig   */
     const char *title;       /* window title                                */
+    /* added by the window work: */
+    int stats;               /* show fps / drops / latency from the start   */
+    int grid;                /* coach_grid: power points for the subject arrow */
+    int hidden;              /* create the window hidden (tests)            */
+    const char *show;        /* NULL: default set; else a comma list of what
+                              * is shown at start: thirds, phi, diagonals,
+                              * spiral[:0-3], centre, horizon, crop:1:1|4:5|3:2|16:9,
+                              * histogram, histogram-rgb, zebras, peaking,
+                              * subject, meter, hints, label, explain, help,
+                              * stats, or none */
+    const char *screenshot;  /* save the window as PNG here after
+                              * screenshot_after frames, then push SDL_QUIT */
+    long screenshot_after;   /* frames (0: 30)                              */
 } ovl_opts;
 
 /* Everything the window shows besides the frame and the analysis. */
@@ -64,5 +77,11 @@ ovl_action ovl_handle_event(ovl_window *w, const SDL_Event *e);
 /* Finds a sans-serif TrueType font through fontconfig; 0 and the path in
  * buf, or -ENOENT with a line in err. */
 int ovl_font_find(char *buf, size_t n, char *err, size_t errlen);
+
+/* Shows a short line for a few seconds (e.g. "Saved ..."), copied. */
+void ovl_notice(ovl_window *w, const char *text);
+
+/* Is the window mirrored now (the M key)?  Snapshots never are. */
+int ovl_mirrored(const ovl_window *w);
 
 #endif

@@ -1,0 +1,223 @@
+/* Internals shared between the files of overlay/: the window struct, the
+ * palette, the drawing primitives, the text cache and the pure geometry the
+ * pixel tests check.  Main thread only, like everything in overlay/. */
+#ifndef VFCOACH_OVERLAY_INTERNAL_H
+#define VFCOACH_OVERLAY_INTERNAL_H
+
+#include <stdint.h>
+
+#include <SDL.h>
+#include <SDL_ttf.h>
+
+#include "overlay/overlay.h"
+
+/* ---- guides ------------------------------------------------------------ */
+
+typedef enum ovl_guide {
+    OVL_G_THIRDS = 0,
+    OVL_G_PHI,
+    OVL_G_DIAGONALS,
+    OVL_G_SPIRAL,
+    OVL_G_CENTRE,
+    OVL_G_HORIZON,
+    OVL_G_CROP,
+    OVL_G_COUNT
+} ovl_guide;
+
+/* Crop masks, width:height.  Index 0 is unused (no mask). */
+#define OVL_CROP_COUNT 5
+extern const double ovl_crop_ratio[OVL_CROP_COUNT];
+extern const char *const ovl_crop_name[OVL_CROP_COUNT];
+
+/* Guide names as shown on screen and accepted by ovl_opts.show. */
+extern const char *const ovl_guide_name[OVL_G_COUNT];
+
+/* Phi grid fractions, 1/phi^2 and 1/phi. */
+#define OVL_PHI 1.6180339887498949
+#define OVL_PHI_A 0.3819660112501051
+#define OVL_PHI_B 0.6180339887498949
+
+/* Within this roll (degrees) the artificial horizon takes its level look. */
+#define OVL_LEVEL_DEG 0.5
+
+/* ---- palette: our own, chosen for luminance contrast first ------------- */
+
+extern const SDL_Color ovl_ink;      /* guide cores, text                   */
+extern const SDL_Color ovl_casing;   /* dark edge under every guide line    */
+extern const SDL_Color ovl_panel;    /* translucent panel behind text       */
+extern const SDL_Color ovl_dimtext;  /* secondary text                      */
+extern const SDL_Color ovl_accent;   /* ready cue (amber, bright)           */
+extern const SDL_Color ovl_level;    /* horizon when level (sky blue)       */
+extern const SDL_Color ovl_zebra;    /* zebra stripes (deep violet)         */
+#define OVL_PEAK_COLOURS 3
+extern const SDL_Color ovl_peak[OVL_PEAK_COLOURS];
+
+/* ---- text cache ----------------------------------------------------------- */
+
+#define OVL_TEXT_SLOTS 192
+#define OVL_TEXT_MAX 200
+
+typedef struct ovl_text {
+    char s[OVL_TEXT_MAX];
+    TTF_Font *font;
+    SDL_Color c;
+    SDL_Texture *tex;
+    int w, h;
+    uint64_t used;        /* frame counter when last drawn: LRU eviction */
+} ovl_text_slot;
+
+/* ---- vertex batches for anti-aliased lines ------------------------------ */
+
+#define OVL_BATCH_V 12288
+#define OVL_BATCH_I (OVL_BATCH_V * 9 / 4)
+
+typedef struct ovl_batch {
+    SDL_Vertex v[OVL_BATCH_V];
+    int idx[OVL_BATCH_I];
+    int nv, ni;
+} ovl_batch;
+
+/* ---- the window ---------------------------------------------------------- */
+
+#define OVL_SPARK_N 2048     /* score samples kept (10 s at up to 200 fps) */
+#define OVL_SPARK_SECONDS 10.0
+#define OVL_MASK_MAX_PX (640 * 400) /* zebra/peaking mask budget, pixels */
+
+struct ovl_window {
+    SDL_Window *win;
+    SDL_Renderer *ren;
+    int ww, wh;                /* renderer output size, pixels            */
+    int software;              /* the renderer is SDL's software one      */
+    char renderer_name[32];
+
+    /* the frame */
+    SDL_Texture *frame_tex;
+    Uint32 frame_fmt;
+    int fw, fh;                /* frame size, pixels (0: none yet)        */
+    uint8_t *conv;             /* GREY -> XRGB conversion, fw*fh*4 bytes   */
+    size_t conv_cap;
+    SDL_FRect fr;              /* where the frame is drawn                */
+
+    /* zebra / peaking mask */
+    SDL_Texture *mask_tex;
+    int mw, mh;                /* mask size, pixels                       */
+    uint32_t *mask;            /* mw*mh ARGB8888                          */
+    size_t mask_cap;           /* pixels                                  */
+    int *mask_sx;              /* source column of each mask column       */
+    size_t mask_sx_cap;
+    int mask_valid;
+    int peak_threshold;        /* 8-bit luma central difference           */
+
+    /* what is shown */
+    int guide[OVL_G_COUNT];
+    int spiral_orient;         /* 0..3                                    */
+    int crop;                  /* index into ovl_crop_ratio, 0 none        */
+    int hist_mode;             /* 0 off, 1 luma, 2 RGB                    */
+    int zebras, peaking, peak_colour, subject, meter, hints, label, explain, help, stats;
+    int mirror, tone, presenter;
+    int present_guide;         /* presenter: the one guide shown           */
+    coach_grid grid;           /* power points for the subject arrow       */
+
+    /* type */
+    char font_path[1024];
+    TTF_Font *font, *font_big, *font_small;
+    int font_px;               /* size font was opened at, 0 none          */
+    ovl_text_slot text[OVL_TEXT_SLOTS];
+
+    ovl_batch casing, core;    /* lines: dark edges first, then cores      */
+
+    /* score history for the sparkline */
+    double spark_t[OVL_SPARK_N];
+    float spark_s[OVL_SPARK_N];
+    int spark_head, spark_n;
+
+    uint32_t hist_rgb[3][256]; /* RGB histogram, subsampled                 */
+    uint64_t hist_rgb_total;
+
+    coach_result last;         /* result of the last frame (redraws)       */
+    int have_result;
+    int prev_ready;
+    double ready_enter;        /* score at which ready is entered          */
+
+    SDL_AudioDeviceID audio;
+    int16_t *tone_buf;
+    Uint32 tone_bytes;
+
+    char notice[256];
+    Uint64 notice_until;       /* SDL ticks, ms                            */
+
+    char shot_path[1024];
+    long shot_after;
+    int shot_done;
+    uint64_t frames;           /* frames shown (f != NULL)                 */
+    uint64_t draws;            /* every ovl_draw                           */
+};
+
+/* ---- window.c ------------------------------------------------------------- */
+
+/* Draws everything into the back buffer without presenting (tests read
+ * pixels after this). */
+int ovl_draw(ovl_window *w, const cap_frame *f, const coach_result *r, const ovl_status *st);
+/* Sets what is shown from a comma list (see ovl_opts.show); 0 or -EINVAL
+ * with a line in err naming the unknown item. */
+int ovl_show_parse(ovl_window *w, const char *list, char *err, size_t errlen);
+/* Reads the back buffer into a new ARGB8888 surface (caller frees). */
+SDL_Surface *ovl_readback(ovl_window *w);
+
+/* ---- draw.c ---------------------------------------------------------------- */
+
+/* The largest rect of the frame's aspect centred in a ww x wh window. */
+SDL_FRect ovl_fit_rect(int fw, int fh, int ww, int wh);
+/* The largest rect of aspect ratio (w/h) centred in r. */
+SDL_FRect ovl_crop_rect(const SDL_FRect *r, double ratio);
+/* Frame fractions (u across, v down) to window pixels, honouring mirror. */
+void ovl_map(const ovl_window *w, double u, double v, float *x, float *y);
+
+void ovl_fill(ovl_window *w, float x, float y, float rw, float rh, SDL_Color c);
+/* A crisp axis-aligned guide line: a dark casing and a light core. */
+void ovl_hline(ovl_window *w, float x0, float x1, float y, int thick);
+void ovl_vline(ovl_window *w, float x, float y0, float y1, int thick);
+/* An anti-aliased line of the given width into a batch. */
+void ovl_aaline(ovl_batch *b, float x0, float y0, float x1, float y1, float width, SDL_Color c);
+/* A guide stroke: casing into w->casing, core into w->core. */
+void ovl_stroke(ovl_window *w, float x0, float y0, float x1, float y1, float width);
+void ovl_stroke_col(ovl_window *w, float x0, float y0, float x1, float y1, float width, SDL_Color c);
+void ovl_batch_flush(ovl_window *w, ovl_batch *b);
+void ovl_strokes_flush(ovl_window *w);
+/* Outline of a rectangle with anti-aliased strokes. */
+void ovl_frame_rect(ovl_window *w, float x, float y, float rw, float rh, float width, SDL_Color c);
+
+/* ---- text.c ----------------------------------------------------------------- */
+
+int ovl_fonts_open(ovl_window *w, char *err, size_t errlen);
+void ovl_fonts_close(ovl_window *w);
+void ovl_text_flush(ovl_window *w);
+/* Size of s in font; 0 on success. */
+int ovl_text_size(ovl_window *w, TTF_Font *font, const char *s, int *tw, int *th);
+/* Draws s with its top-left at (x, y) (align: 0 left, 1 centre, 2 right
+ * of x); returns the width drawn. */
+int ovl_text(ovl_window *w, TTF_Font *font, const char *s, float x, float y, int align, SDL_Color c);
+/* A panel: rounded-looking translucent rectangle. */
+void ovl_panel_rect(ovl_window *w, float x, float y, float rw, float rh);
+
+/* ---- guides.c --------------------------------------------------------------- */
+
+void ovl_draw_guides(ovl_window *w, const coach_result *r);
+/* The horizon line's endpoints in window pixels for a roll (tests). */
+void ovl_horizon_line(const ovl_window *w, double tilt_deg, double v, float *x0, float *y0,
+                      float *x1, float *y1);
+
+/* ---- readouts.c ------------------------------------------------------------- */
+
+/* Recomputes the zebra/peaking mask and the RGB histogram from a new frame. */
+void ovl_update_mask(ovl_window *w, const coach_frame *f);
+void ovl_update_hist_rgb(ovl_window *w, const coach_frame *f);
+void ovl_draw_mask(ovl_window *w);
+void ovl_draw_subject(ovl_window *w, const coach_result *r);
+void ovl_draw_hud(ovl_window *w, const coach_result *r, const ovl_status *st);
+void ovl_spark_push(ovl_window *w, double t, double score);
+/* 8-bit luma (BT.709 weights on the encoded values; Y' for Y'CbCr, range
+ * expanded) of one pixel. */
+int ovl_luma_at(const coach_frame *f, int x, int y);
+
+#endif
