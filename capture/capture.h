@@ -109,6 +109,53 @@ void cap_thread_destroy(cap_thread *t);
 /* One line describing the last error or state change, for the UI; copies into buf. */
 void cap_thread_status(cap_thread *t, char *buf, size_t n);
 
+/* ---- cameras (V4L2) -------------------------------------------------- */
+
+/* Opens a camera: a node (/dev/video0), a /dev/v4l/by-id or by-path link, a
+ * node name ("video0") or the card name the driver reports ("Integrated
+ * Camera"; case is ignored).  "SPEC@FOURCC" asks for a pixel format (e.g.
+ * "/dev/video0@NV12").  Size and rate from o (0: the largest size at
+ * >= 25 fps up to 1920x1080, 30 fps).  NULL with one line naming the device
+ * and the cause in err: no such device, not a camera, permission denied,
+ * busy... (--device uses this, so a folder is never taken for stills). */
+cap_source *cap_camera_open(const char *dev, const cap_source_opts *o, char *err, size_t errlen);
+
+/* The first video capture device in node order: 0 and its node in path,
+ * or -ENOENT when there is none.  A camera that exists but cannot be opened
+ * (permission, busy) still counts, so the user gets its error, not the demo. */
+int cap_default_camera(char *path, size_t n);
+
+/* One pixel format and size a camera offers, with its frame rates. */
+typedef struct cap_camera_mode {
+    uint32_t fourcc;           /* V4L2 fourcc                              */
+    char desc[32];             /* the driver's description of the format   */
+    int w, h;
+    int nfps;                  /* frame rates, fastest first               */
+    double fps[16];
+    int fps_range;             /* 1: any rate from fps[1] up to fps[0]     */
+    int passthrough;           /* 1: reaches the analysis unconverted      */
+} cap_camera_mode;
+
+/* A video capture device, for --list. */
+typedef struct cap_camera_info {
+    char node[64];             /* /dev/videoN                              */
+    char card[64], driver[32], bus[64];
+    char by_id[192], by_path[192]; /* stable links ("" when udev made none) */
+    int multiplanar;           /* served through libv4l2's multi-planar plugin */
+    char problem[256];         /* "" or why it could not be opened (permission, busy) */
+    int nmodes;
+    cap_camera_mode *modes;
+} cap_camera_info;
+
+/* Every video capture device (udev enumeration; metadata and output nodes
+ * skipped), in node order.  Returns the count (>= 0; *out NULL when 0) or a
+ * negative errno with one line in err.  Free with cap_camera_list_free. */
+int cap_camera_list(cap_camera_info **out, char *err, size_t errlen);
+void cap_camera_list_free(cap_camera_info *list, int n);
+
+/* "YUYV", "MJPG": the fourcc as text (buf of 8 bytes). */
+const char *cap_fourcc_str(uint32_t fourcc, char buf[8]);
+
 /* ---- still images -------------------------------------------------- */
 
 /* Loads a PNG or JPEG into a newly allocated XRGB8888 frame.  On success
