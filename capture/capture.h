@@ -134,6 +134,7 @@ typedef struct cap_camera_mode {
     double fps[16];
     int fps_range;             /* 1: any rate from fps[1] up to fps[0]     */
     int passthrough;           /* 1: reaches the analysis unconverted      */
+    double chosen_fps;         /* > 0 on the mode vfcoach takes by default, at this rate */
 } cap_camera_mode;
 
 /* A video capture device, for --list. */

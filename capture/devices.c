@@ -343,6 +343,11 @@ int cap_camera_list(cap_camera_info **out, char *err, size_t errlen)
         if (!c->modes)
             continue;
         c->nmodes = m;
+        cap_v4l2_want want = {0};
+        cap_v4l2_pick pick;
+        if (cap_v4l2_choose(modes, m, &want, &pick) == 0)
+            c->modes[pick.mode].chosen_fps =
+                pick.rate.num ? (double)pick.rate.den / pick.rate.num : cap_v4l2_mode_fps(&modes[pick.mode]);
         for (int j = 0; j < m; j++) {
             cap_camera_mode *cm = &c->modes[j];
             cm->fourcc = modes[j].fourcc;

@@ -24,6 +24,7 @@
 #include <linux/videodev2.h>
 #include <math.h>
 #include <poll.h>
+#include <stdarg.h>
 #include <stdio.h>
 #include <stdlib.h>
 #include <string.h>
@@ -775,6 +776,15 @@ static int stream_start(v4l2_src *v, size_t max_bytes, char *err, size_t errlen)
     return 0;
 }
 
+/* One line for cap_thread_status(), truncated to fit. */
+__attribute__((format(printf, 2, 3))) static void set_note(v4l2_src *v, const char *fmt, ...)
+{
+    va_list ap;
+    va_start(ap, fmt);
+    vsnprintf(v->base.note, sizeof v->base.note, fmt, ap);
+    va_end(ap);
+}
+
 static int v4l2_poll_fd(cap_source *s)
 {
     return ((v4l2_src *)s)->fd;
@@ -803,12 +813,18 @@ static int v4l2_produce(cap_source *s, cap_mailbox *mb, cap_frame *meta)
             /* An unregistered node polls as POLLERR|POLLHUP while DQBUF may
              * still say "nothing yet"; POLLHUP only ever means gone. */
             struct pollfd p = {.fd = v->fd, .events = POLLIN};
-            if (poll(&p, 1, 0) == 1 && (p.revents & POLLHUP))
+            if (poll(&p, 1, 0) == 1 && (p.revents & POLLHUP)) {
+                set_note(v, "%s: camera unplugged or gone: "
+                         "waiting for the same camera to come back", v->base.name);
                 return -ENODEV;
+            }
             return -EAGAIN;
         }
-        if (e == ENODEV || e == EIO || e == ENXIO)
+        if (e == ENODEV || e == EIO || e == ENXIO) {
+            set_note(v, "%s: camera unplugged or gone (%s): "
+                     "waiting for the same camera to come back", v->base.name, strerror(e));
             return -ENODEV;
+        }
         return -e;
     }
     int rc = 0;
@@ -920,7 +936,14 @@ static int try_reopen(v4l2_src *v)
             stream_close(v);
             return (r == -EBUSY || r == -ENODEV || r == -ENOENT || r == -EIO) ? -EAGAIN : r;
         }
+        char was[sizeof v->base.name];
+        copy_str(was, sizeof was, v->base.name);
         snprintf(v->base.name, sizeof v->base.name, "%s (%s)", have.card, v->node);
+        if (strcmp(was, v->base.name))
+            set_note(v, "%s: camera back (it was %s), streaming again",
+                     v->base.name, was);
+        else
+            set_note(v, "%s: camera back, streaming again", v->base.name);
         return 0;
     }
     return -EAGAIN;

@@ -4,6 +4,7 @@
 #define VFCOACH_APP_H
 
 #include <stdint.h>
+#include <stdio.h>
 
 #include "coach/coach.h"
 
@@ -31,5 +32,11 @@ typedef struct app_opts {
 /* Subcommands: argv[0] is the subcommand name. Return the exit status. */
 int app_analyze_main(int argc, char **argv);
 int app_bench_main(int argc, char **argv);
+
+/* ---- cameras (coach/app_list.c) ----------------------------------------
+ * --list: prints every camera with its node, bus, stable links, formats,
+ * sizes and rates to out; with none, says so and points to the demo scene.
+ * Returns the exit status (0, or 1 when udev cannot be read). */
+int app_list_cameras(FILE *out);
 
 #endif

@@ -542,13 +542,19 @@ static int run_live(app_opts *o)
     r.wake.efd = -1;
 
     const char *spec = o->source ? o->source : o->device;
+    char cam[64];
+    int camera = o->device != NULL;
+    if (!spec && cap_default_camera(cam, sizeof cam) == 0) {
+        spec = cam;
+        camera = 1;
+    }
     if (!spec) {
-        /* TODO(camera): default to the first camera when there is one. */
         spec = "demo";
         fprintf(stderr, "vfcoach: no camera found: showing the demo scene (harbour at dusk)\n");
     }
     cap_source_opts so = {.w = o->w, .h = o->h, .fps = o->fps, .seed = o->seed};
-    r.src = cap_source_open(spec, &so, err, sizeof err);
+    /* A camera spec never falls through to stills (a folder is not a camera). */
+    r.src = camera ? cap_camera_open(spec, &so, err, sizeof err) : cap_source_open(spec, &so, err, sizeof err);
     if (!r.src) {
         fprintf(stderr, "vfcoach: %s\n", err);
         return 1;
@@ -688,10 +694,7 @@ int main(int argc, char **argv)
         return 2;
     if (p > 0)
         return 0;
-    if (o.list) {
-        /* TODO(camera): list the cameras. */
-        fprintf(stderr, "vfcoach: --list: camera support is not built yet\n");
-        return 1;
-    }
+    if (o.list)
+        return app_list_cameras(stdout);
     return run_live(&o);
 }
