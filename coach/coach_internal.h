@@ -103,8 +103,9 @@ typedef struct coach_fft_plan {
 /* 0, or -1 when n is not a power of two in 2..COACH_FFT_MAX. */
 int coach_fft_plan_init(coach_fft_plan *p, int n);
 /* In-place 2-D FFT of px->n x py->n interleaved complex floats (row-major);
- * the inverse is unscaled. */
-void coach_fft2d(const coach_fft_plan *px, const coach_fft_plan *py, float *data, int inverse);
+ * scratch holds as many; the inverse is unscaled. */
+void coach_fft2d(const coach_fft_plan *px, const coach_fft_plan *py, float *data, float *scratch,
+                 int inverse);
 
 /* Level and horizon from straight lines (level.c).  Coordinates are
  * analysis pixels with pixel centres at integers. */

@@ -25,6 +25,7 @@ struct coach_motion {
     float prev[2 * MN];   /* spectrum of the previous frame */
     float cur[2 * MN];
     float work[2 * MN];
+    float scratch[2 * MN];
 };
 
 coach_motion *coach_motion_create(void)
@@ -110,7 +111,7 @@ int coach_motion_run(coach_motion *m, const float *luma, int w, int h, double *d
         m->have_prev = 0;
         return 0;
     }
-    coach_fft2d(&m->px, &m->py, m->cur, 0);
+    coach_fft2d(&m->px, &m->py, m->cur, m->scratch, 0);
     int measured = 0;
     if (m->have_prev && m->prev_k == k) {
         for (int i = 0; i < MN; i++) {
@@ -121,7 +122,7 @@ int coach_motion_run(coach_motion *m, const float *luma, int w, int h, double *d
             m->work[2 * i] = re / mag;
             m->work[2 * i + 1] = im / mag;
         }
-        coach_fft2d(&m->px, &m->py, m->work, 1);
+        coach_fft2d(&m->px, &m->py, m->work, m->scratch, 1);
         int bi = 0;
         float bv = -1e30f;
         for (int i = 0; i < MN; i++)

@@ -23,9 +23,12 @@ struct coach_saliency {
     float *rows;           /* max_h x N: the luma resampled along x      */
     float small[NN];       /* luma at N x N                              */
     float cx[2 * NN];      /* complex work                               */
+    float scratch[2 * NN];
+    float pad[(N + 4) * (N + 4)];
+    float lab_mass[NN];
+    uint8_t lab_sides[NN];
     float la[NN], lb[NN];  /* log amplitude, its local mean              */
     float map[NN];
-    float tmp[NN];
     int16_t label[NN];
     int16_t stack[NN];
 };
@@ -58,17 +61,23 @@ void coach_saliency_destroy(coach_saliency *s)
 /* Area-weighted resampling of n source samples (stride st) to N. */
 static void resample_line(const float *src, int n, int st, float *dst, int dst_st)
 {
-    const double f = (double)n / N;
+    const float f = (float)n / N, inv = (float)N / (float)n;
     for (int j = 0; j < N; j++) {
-        double x0 = j * f, x1 = x0 + f, acc = 0;
-        int i0 = (int)x0, i1 = (int)ceil(x1);
+        float x0 = j * f, x1 = x0 + f, acc = 0;
+        int i0 = (int)x0, i1 = (int)ceilf(x1);
         if (i1 > n)
             i1 = n;
-        for (int i = i0; i < i1; i++) {
-            double a = i > x0 ? i : x0, b = i + 1 < x1 ? i + 1 : x1;
-            acc += (b - a) * src[(size_t)i * st];
+        if (i1 - i0 > 2) { /* whole samples in the middle, partial at the ends */
+            acc = (i0 + 1 - x0) * src[(size_t)i0 * st] + (x1 - (i1 - 1)) * src[(size_t)(i1 - 1) * st];
+            for (int i = i0 + 1; i < i1 - 1; i++)
+                acc += src[(size_t)i * st];
+        } else {
+            for (int i = i0; i < i1; i++) {
+                float a = i > x0 ? (float)i : x0, b = i + 1 < x1 ? (float)(i + 1) : x1;
+                acc += (b - a) * src[(size_t)i * st];
+            }
         }
-        dst[(size_t)j * dst_st] = (float)(acc / f);
+        dst[(size_t)j * dst_st] = acc * inv;
     }
 }
 
@@ -82,31 +91,39 @@ static inline int refl(int i)
     return i;
 }
 
-/* Separable 5-tap Gaussian of the paper's sigma 8 — at 5 taps almost a box. */
-static void blur5(float *m, float *tmp)
+/* Copies m into pad with a reflect-101 border of 2. */
+static void pad2(const float *m, float *pad)
 {
-    float k[5];
-    double ks = 0;
-    for (int i = 0; i < 5; i++) {
-        k[i] = (float)exp(-(double)((i - 2) * (i - 2)) / (2.0 * 64.0));
-        ks += k[i];
+    const int P = N + 4;
+    for (int y = -2; y < N + 2; y++) {
+        const float *row = m + refl(y) * N;
+        float *d = pad + (size_t)(y + 2) * P;
+        for (int x = -2; x < N + 2; x++)
+            d[x + 2] = row[refl(x)];
     }
-    for (int i = 0; i < 5; i++)
-        k[i] = (float)(k[i] / ks);
-    for (int y = 0; y < N; y++)
-        for (int x = 0; x < N; x++) {
-            float a = 0;
-            for (int i = 0; i < 5; i++)
-                a += k[i] * m[y * N + refl(x + i - 2)];
-            tmp[y * N + x] = a;
-        }
-    for (int y = 0; y < N; y++)
-        for (int x = 0; x < N; x++) {
-            float a = 0;
-            for (int i = 0; i < 5; i++)
-                a += k[i] * tmp[refl(y + i - 2) * N + x];
-            m[y * N + x] = a;
-        }
+}
+
+/* Separable 5-tap Gaussian of the paper's sigma 8 — at 5 taps almost a box. */
+static void blur5(float *m, float *pad)
+{
+    /* exp(-d^2 / 128) for d = 0, 1, 2, normalised */
+    const float e1 = 0.99221794f, e2 = 0.96923323f, ks = 1.0f + 2 * e1 + 2 * e2;
+    const float k0 = 1.0f / ks, k1 = e1 / ks, k2 = e2 / ks;
+    const int P = N + 4;
+    pad2(m, pad);
+    for (int y = 0; y < N + 4; y++) { /* horizontal pass in place, rows of pad */
+        float *r = pad + (size_t)y * P;
+        float out[N];
+        for (int x = 0; x < N; x++)
+            out[x] = k2 * (r[x] + r[x + 4]) + k1 * (r[x + 1] + r[x + 3]) + k0 * r[x + 2];
+        memcpy(r + 2, out, sizeof out);
+    }
+    for (int y = 0; y < N; y++) {
+        const float *a = pad + (size_t)y * P + 2;
+        for (int x = 0; x < N; x++)
+            m[y * N + x] = k2 * (a[x] + a[x + 4 * P]) + k1 * (a[x + P] + a[x + 3 * P]) +
+                           k0 * a[x + 2 * P];
+    }
 }
 
 static int spectral_residual(coach_saliency *s, const float *luma, int w, int h)
@@ -130,19 +147,20 @@ static int spectral_residual(coach_saliency *s, const float *luma, int w, int h)
         s->cx[2 * i] = s->small[i];
         s->cx[2 * i + 1] = 0;
     }
-    coach_fft2d(&s->plan, &s->plan, s->cx, 0);
+    coach_fft2d(&s->plan, &s->plan, s->cx, s->scratch, 0);
     for (int i = 0; i < NN; i++) {
         float re = s->cx[2 * i], im = s->cx[2 * i + 1];
         s->la[i] = 0.5f * logf(re * re + im * im + 1e-12f);
     }
-    for (int y = 0; y < N; y++)
+    pad2(s->la, s->pad);
+    for (int y = 0; y < N; y++) {
+        const float *a = s->pad + (size_t)(y + 1) * (N + 4) + 1;
         for (int x = 0; x < N; x++) {
-            float a = 0;
-            for (int dy = -1; dy <= 1; dy++)
-                for (int dx = -1; dx <= 1; dx++)
-                    a += s->la[refl(y + dy) * N + refl(x + dx)];
-            s->lb[y * N + x] = a * (1.0f / 9.0f);
+            const float *q = a + x;
+            s->lb[y * N + x] = (q[0] + q[1] + q[2] + q[N + 4] + q[N + 5] + q[N + 6] +
+                                q[2 * N + 8] + q[2 * N + 9] + q[2 * N + 10]) * (1.0f / 9.0f);
         }
+    }
     for (int i = 0; i < NN; i++) {
         float re = s->cx[2 * i], im = s->cx[2 * i + 1];
         float mag = sqrtf(re * re + im * im);
@@ -155,12 +173,12 @@ static int spectral_residual(coach_saliency *s, const float *luma, int w, int h)
             s->cx[2 * i + 1] = 0;
         }
     }
-    coach_fft2d(&s->plan, &s->plan, s->cx, 1);
+    coach_fft2d(&s->plan, &s->plan, s->cx, s->scratch, 1);
     for (int i = 0; i < NN; i++) {
         float re = s->cx[2 * i], im = s->cx[2 * i + 1];
         s->map[i] = re * re + im * im;
     }
-    blur5(s->map, s->tmp);
+    blur5(s->map, s->pad);
     float mx = 0;
     for (int i = 0; i < NN; i++)
         if (s->map[i] > mx)
@@ -187,6 +205,7 @@ static void find_subject(coach_saliency *s, float thr, coach_salient *out)
         nlab++;
         int sp = 0, x0 = N, y0 = N, x1 = -1, y1 = -1;
         double mass = 0, sx = 0, sy = 0;
+        unsigned sides = 0;
         s->stack[sp++] = (int16_t)i;
         s->label[i] = (int16_t)nlab;
         while (sp) {
@@ -199,6 +218,10 @@ static void find_subject(coach_saliency *s, float thr, coach_salient *out)
             if (px > x1) x1 = px;
             if (py < y0) y0 = py;
             if (py > y1) y1 = py;
+            if (px == 0) sides |= COACH_EDGE_LEFT;
+            if (px == N - 1) sides |= COACH_EDGE_RIGHT;
+            if (py == 0) sides |= COACH_EDGE_TOP;
+            if (py == N - 1) sides |= COACH_EDGE_BOTTOM;
             for (int dy = -1; dy <= 1; dy++)
                 for (int dx = -1; dx <= 1; dx++) {
                     int qx = px + dx, qy = py + dy;
@@ -212,6 +235,8 @@ static void find_subject(coach_saliency *s, float thr, coach_salient *out)
                 }
         }
         total += mass;
+        s->lab_mass[nlab] = (float)mass;
+        s->lab_sides[nlab] = (uint8_t)sides;
         if (mass > best_mass) {
             best_mass = mass;
             best = nlab;
@@ -232,22 +257,9 @@ static void find_subject(coach_saliency *s, float thr, coach_salient *out)
     out->subject.h = (double)(by1 - by0 + 1) / N;
     /* Intrusions: object-map regions that reach a border and carry at
      * least a tenth of the salient mass. */
-    for (int lab = 1; lab <= nlab; lab++) {
-        double mass = 0;
-        unsigned sides = 0;
-        for (int i = 0; i < NN; i++) {
-            if (s->label[i] != lab)
-                continue;
-            int px = i % N, py = i / N;
-            mass += s->map[i] - thr;
-            if (px == 0) sides |= COACH_EDGE_LEFT;
-            if (px == N - 1) sides |= COACH_EDGE_RIGHT;
-            if (py == 0) sides |= COACH_EDGE_TOP;
-            if (py == N - 1) sides |= COACH_EDGE_BOTTOM;
-        }
-        if (sides && mass >= 0.1 * total)
-            out->edges |= sides;
-    }
+    for (int lab = 1; lab <= nlab; lab++)
+        if (s->lab_mass[lab] >= 0.1 * total)
+            out->edges |= s->lab_sides[lab];
 }
 
 const float *coach_saliency_run(coach_saliency *s, const float *luma, int w, int h,
