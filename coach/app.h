@@ -3,6 +3,7 @@
 #ifndef VFCOACH_APP_H
 #define VFCOACH_APP_H
 
+#include <stddef.h>
 #include <stdint.h>
 #include <stdio.h>
 
@@ -38,5 +39,51 @@ int app_bench_main(int argc, char **argv);
  * sizes and rates to out; with none, says so and points to the demo scene.
  * Returns the exit status (0, or 1 when udev cannot be read). */
 int app_list_cameras(FILE *out);
+
+/* ---- snapshots and the on-ready command (coach/app_snap.c) -------------
+ * Main thread only.  Nothing here blocks on a child process. */
+
+/* The default snapshot folder: XDG_PICTURES_DIR from
+ * $XDG_CONFIG_HOME/user-dirs.dirs (else ~/.config/user-dirs.dirs), else
+ * ~/Pictures; then "/vfcoach".  0, or -ENOENT when there is no home. */
+int app_snap_default_dir(char *buf, size_t n);
+
+/* Saves the full-resolution frame as PNG (jpeg = 0) or JPEG (jpeg = 1) and
+ * a JSON sidecar (same name, .json) with every measurement (coach_json),
+ * the profile, the source and the local time in ISO 8601, into dir
+ * (created 0700 when missing: snapshots are private).  Each file is
+ * written to a temporary name in dir, synced, then renamed; an existing
+ * snapshot is never replaced.  0 and the image path in path, or a negative
+ * errno and one line naming the file and the cause in err; on failure no
+ * file is left behind. */
+int app_snap_save(const char *dir, const coach_frame *f, const coach_result *r, coach_profile profile,
+                  const char *source, int jpeg, char *path, size_t pathlen, char *err, size_t errlen);
+
+/* A command run when the frame becomes ready (--on-ready): split into
+ * arguments like a POSIX shell would split words ('single', "double" with
+ * \ \" \$ \` escapes, backslash outside quotes) but with no expansion and
+ * no shell; started with posix_spawnp; one run at a time. */
+typedef struct app_hook app_hook;
+
+/* Splits line into at most max-1 arguments (argv[max-1] is not used; the
+ * list ends with NULL), copying the words into store.  Returns the count,
+ * or -EINVAL (unbalanced quote, trailing backslash, empty) with a line in
+ * err, or -E2BIG when argv or store is too small. */
+int app_hook_split(const char *line, char **argv, int max, char *store, size_t storelen, char *err,
+                   size_t errlen);
+/* NULL with a line in err when the command cannot be split. */
+app_hook *app_hook_create(const char *line, char *err, size_t errlen);
+/* Does not wait for a running child (it is reaped if already done). */
+void app_hook_destroy(app_hook *h);
+/* Starts the command unless the previous run is still going.  0 started,
+ * -EBUSY still running, or a negative errno from posix_spawnp; msg gets
+ * one line for the user either way. */
+int app_hook_start(app_hook *h, char *msg, size_t n);
+/* Reaps without blocking (waitpid WNOHANG).  1 when a run has ended, with
+ * its exit status in *status (wait(2) encoding) and a line in msg; 0 when
+ * nothing ended. */
+int app_hook_poll(app_hook *h, int *status, char *msg, size_t n);
+/* Is a run going on? */
+int app_hook_running(const app_hook *h);
 
 #endif

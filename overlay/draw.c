@@ -28,11 +28,11 @@ SDL_FRect ovl_fit_rect(int fw, int fh, int ww, int wh)
     /* Whole pixels: the frame edges and the guides stay crisp. */
     if ((double)ww * fh > (double)wh * fw) {
         int w = (int)lround((double)wh * fw / fh);
-        r.x = (float)((ww - w) / 2);
+        r.x = (float)lround((ww - w) / 2.0);
         r.w = (float)w;
     } else {
         int h = (int)lround((double)ww * fh / fw);
-        r.y = (float)((wh - h) / 2);
+        r.y = (float)lround((wh - h) / 2.0);
         r.h = (float)h;
     }
     return r;
