@@ -44,6 +44,7 @@ typedef struct line_fit {
     double tilt_deg;
     int present;        /* positions used in the fit                       */
     int span;           /* positions along the line inside the frame       */
+    int extent;         /* first to last position of the fitted run        */
     double rms;         /* residual, pixels                                */
     double weight;      /* summed edge strength of the fitted positions    */
 } line_fit;
@@ -330,11 +331,11 @@ static void peak_subbin(const coach_level *l, int fam, int nrho, const peak *p, 
 /* Locates the edge along a line of one family and fits it.  In the
  * horizontal family "along" is x and "across" is y; in the vertical family
  * the roles swap.  The line is rho = X cos(phi) + Y sin(phi) in centred
- * coordinates.  runs: fit only the longest run of present positions
- * (segments such as walls) rather than every present position (a horizon
- * interrupted by a boat). */
+ * coordinates.  Only the longest run of present positions with gaps of at
+ * most max_gap is fitted: a wall edge is one short run, a horizon a long
+ * one that may be interrupted by a boat. */
 static void fit_line(coach_level *l, int w, int h, int fam, double alpha_deg, double rho_c,
-                     float thr, int runs, line_fit *out)
+                     float thr, int max_gap, line_fit *out)
 {
     memset(out, 0, sizeof *out);
     const double phi = ((fam == FAM_H) ? 90.0 : 0.0) + alpha_deg;
@@ -396,17 +397,16 @@ static void fit_line(coach_level *l, int w, int h, int fam, double alpha_deg, do
     out->span = span;
     if (span < 8)
         return;
-    int u0 = 2, u1 = nal - 3;
-    if (runs) {
-        /* Longest run of present positions, allowing gaps of 3. */
-        int bs = -1, be = -1, s = -1, last = -100;
+    int u0, u1;
+    {
+        int bs = -1, be = -1, s = -1, last = -1000000;
         for (int u = 2; u < nal - 2; u++) {
             if (l->wt[u] <= 0)
                 continue;
-            if (u - last > 4)
+            if (u - last > max_gap + 1)
                 s = u;
             last = u;
-            if (s >= 0 && u - s > be - bs) {
+            if (u - s > be - bs) {
                 bs = s;
                 be = u;
             }
@@ -416,6 +416,7 @@ static void fit_line(coach_level *l, int w, int h, int fam, double alpha_deg, do
         u0 = bs;
         u1 = be;
     }
+    out->extent = u1 - u0 + 1;
     for (int u = u0; u <= u1; u++)
         l->keep[u] = l->wt[u] > 0;
     /* Robust weighted least squares: refit without outliers. */
@@ -497,6 +498,106 @@ static void set_peak(coach_level_est *out, int fam, double alpha_deg, double rho
     out->peak_rho = rho;
 }
 
+typedef struct peak_est { int ok; double alpha, rho; } peak_est;
+
+/* The vertical family.  Upright lines seen by a camera that pitches up or
+ * down converge to a vanishing point (Hartley & Zisserman, Multiple View
+ * Geometry, ch. 8), so their slopes dx/dy grow linearly with where they
+ * cross the middle row: b_i = b0 + k * c_i with c_i their offset from the
+ * centre column.  The roll is the direction of that vanishing point seen
+ * from the image centre, i.e. the slope b0 a line would have through the
+ * centre.  A weighted least-squares fit with outlier rejection gives b0;
+ * with the lines bunched together (no spread in c) the slope of their
+ * weighted mean is used.  Returns 1 with the tilt, a confidence, the
+ * number of lines kept and the strongest fitted peak. */
+static int verticals(coach_level *l, int w, int h, int nrho, float thr, double *tilt_out,
+                     double *conf, int *nout, peak_est *pe)
+{
+    peak pk[MAX_PEAKS];
+    int np = find_peaks(l, FAM_V, nrho, 0.12f * h * thr, pk, MAX_VERT_LINES);
+    double b[MAX_VERT_LINES], c[MAX_VERT_LINES], wt[MAX_VERT_LINES];
+    int keep[MAX_VERT_LINES];
+    int nl = 0;
+    const double cx = 0.5 * (w - 1), cy = 0.5 * (h - 1);
+    pe->ok = 0;
+    for (int i = 0; i < np; i++) {
+        double al, rc;
+        peak_subbin(l, FAM_V, nrho, &pk[i], &al, &rc);
+        line_fit f;
+        fit_line(l, w, h, FAM_V, al, rc, thr, 3, &f);
+        if (!f.ok || f.rms > 0.75 || f.present < 0.15 * h)
+            continue;
+        if (nl == 0)
+            *pe = (peak_est){1, al, rc};
+        b[nl] = f.b;
+        c[nl] = (f.a + f.b * cy - cx) / w;
+        wt[nl] = f.weight;
+        keep[nl] = 1;
+        nl++;
+    }
+    if (nl == 0)
+        return 0;
+    double b0 = 0, k = 0, rms = 0, tot = 0, kept_w = 0;
+    int nk = 0;
+    for (int i = 0; i < nl; i++)
+        tot += wt[i];
+    for (int it = 0; it < 4; it++) {
+        double S = 0, Sc = 0, Sb = 0, Scc = 0, Scb = 0;
+        nk = 0;
+        for (int i = 0; i < nl; i++) {
+            if (!keep[i])
+                continue;
+            S += wt[i];
+            Sc += wt[i] * c[i];
+            Sb += wt[i] * b[i];
+            Scc += wt[i] * c[i] * c[i];
+            Scb += wt[i] * c[i] * b[i];
+            nk++;
+        }
+        if (nk == 0)
+            return 0;
+        double mc = Sc / S, var = Scc / S - mc * mc;
+        if (nk >= 3 && var > 0.15 * 0.15) {
+            k = (Scb / S - mc * Sb / S) / var;
+            b0 = Sb / S - k * mc;
+        } else {
+            k = 0;
+            b0 = Sb / S;
+        }
+        double sr = 0;
+        for (int i = 0; i < nl; i++)
+            if (keep[i]) {
+                double r = b[i] - (b0 + k * c[i]);
+                sr += wt[i] * r * r;
+            }
+        rms = sqrt(sr / S);
+        /* Lines off the common vanishing point by more than about half a
+         * degree (or 2.5 rms) are not upright structure. */
+        double lim = 2.5 * rms > 0.009 ? 2.5 * rms : 0.009;
+        int dropped = 0;
+        for (int i = 0; i < nl; i++)
+            if (keep[i] && fabs(b[i] - (b0 + k * c[i])) > lim) {
+                keep[i] = 0;
+                dropped++;
+            }
+        if (!dropped)
+            break;
+    }
+    nk = 0;
+    kept_w = 0;
+    for (int i = 0; i < nl; i++)
+        if (keep[i]) {
+            nk++;
+            kept_w += wt[i];
+        }
+    if (nl >= 2 && nk < 2)
+        return 0;
+    *tilt_out = atan(b0) * 180.0 / M_PI;
+    *nout = nk;
+    *conf = clamp01(kept_w / tot) * clamp01(nk / 3.0) * clamp01(1.0 - rms / 0.035);
+    return 1;
+}
+
 void coach_level_run(coach_level *l, const float *luma, int w, int h, coach_level_est *out)
 {
     memset(out, 0, sizeof *out);
@@ -522,9 +623,11 @@ void coach_level_run(coach_level *l, const float *luma, int w, int h, coach_leve
         if (i == 0)
             set_peak(out, FAM_H, al, rc, w, h);
         line_fit f;
-        fit_line(l, w, h, FAM_H, al, rc, thr, 0, &f);
-        if (!f.ok || f.rms > 0.75 || f.span < 0.6 * w || f.present < 0.5 * f.span ||
-            f.present < 0.4 * w)
+        /* A horizon crosses the frame: its run spans most of the width,
+         * with gaps of up to a fifth of it (a boat, a figure). */
+        fit_line(l, w, h, FAM_H, al, rc, thr, w / 5, &f);
+        if (!f.ok || f.rms > 0.75 || f.span < 0.6 * w || f.extent < 0.75 * f.span ||
+            f.present < 0.5 * f.extent)
             continue;
         if (f.weight > best_score) {
             best_score = f.weight;
@@ -532,7 +635,19 @@ void coach_level_run(coach_level *l, const float *luma, int w, int h, coach_leve
             set_peak(out, FAM_H, al, rc, w, h);
         }
     }
-    if (best.ok) {
+    /* A strongly sloping "horizon" may be a receding line (a facade's
+     * floors, a road edge) rather than the horizon: when the verticals
+     * agree among themselves but not with it, they win — under a true roll
+     * a horizon and the verticals lean together. */
+    peak_est vpk = {0, 0, 0};
+    int have_vert = 0;
+    double vtilt = 0, vconf = 0;
+    int vn = 0;
+    if (!best.ok || fabs(best.tilt_deg) > 5.0) {
+        vote(l, w, h, nedge, thr, nrho, FAM_V);
+        have_vert = verticals(l, w, h, nrho, thr, &vtilt, &vconf, &vn, &vpk);
+    }
+    if (best.ok && !(have_vert && vn >= 3 && vconf >= 0.5 && fabs(vtilt - best.tilt_deg) > 3.0)) {
         out->has_tilt = 1;
         out->tilt_deg = best.tilt_deg;
         out->source = COACH_LEVEL_HORIZON;
@@ -543,58 +658,13 @@ void coach_level_run(coach_level *l, const float *luma, int w, int h, coach_leve
         out->confidence = clamp01((double)best.present / best.span) * clamp01(1.25 - best.rms);
         return;
     }
-
-    /* Vertical family: several segments, weighted median of their tilts. */
-    vote(l, w, h, nedge, thr, nrho, FAM_V);
-    np = find_peaks(l, FAM_V, nrho, 0.12f * h * thr, pk, MAX_VERT_LINES);
-    double tilt[MAX_VERT_LINES], wt[MAX_VERT_LINES];
-    int nl = 0;
-    for (int i = 0; i < np; i++) {
-        double al, rc;
-        peak_subbin(l, FAM_V, nrho, &pk[i], &al, &rc);
-        if (i == 0 && !out->has_peak)
-            set_peak(out, FAM_V, al, rc, w, h);
-        line_fit f;
-        fit_line(l, w, h, FAM_V, al, rc, thr, 1, &f);
-        if (!f.ok || f.rms > 0.75 || f.present < 0.15 * h)
-            continue;
-        if (nl == 0)
-            set_peak(out, FAM_V, al, rc, w, h);
-        tilt[nl] = f.tilt_deg;
-        wt[nl] = f.weight;
-        nl++;
-    }
-    if (nl == 0)
+    if (!have_vert)
         return;
-    /* Weighted median (insertion sort of at most 10). */
-    for (int i = 1; i < nl; i++)
-        for (int j = i; j > 0 && tilt[j - 1] > tilt[j]; j--) {
-            double t = tilt[j]; tilt[j] = tilt[j - 1]; tilt[j - 1] = t;
-            t = wt[j]; wt[j] = wt[j - 1]; wt[j - 1] = t;
-        }
-    double tot = 0, run = 0, med = tilt[0];
-    for (int i = 0; i < nl; i++)
-        tot += wt[i];
-    for (int i = 0; i < nl; i++) {
-        run += wt[i];
-        if (run >= 0.5 * tot) {
-            med = tilt[i];
-            break;
-        }
-    }
-    /* Agreement: the weight within 1 degree of the median. */
-    double agree = 0;
-    int nagree = 0;
-    for (int i = 0; i < nl; i++)
-        if (fabs(tilt[i] - med) <= 1.0) {
-            agree += wt[i];
-            nagree++;
-        }
-    if (nl >= 2 && nagree < 2)
-        return;
+    if (vpk.ok)
+        set_peak(out, FAM_V, vpk.alpha, vpk.rho, w, h);
     out->has_tilt = 1;
-    out->tilt_deg = med;
+    out->tilt_deg = vtilt;
     out->source = COACH_LEVEL_VERTICALS;
-    out->nlines = nagree;
-    out->confidence = clamp01(agree / tot) * clamp01(nagree / 3.0);
+    out->nlines = vn;
+    out->confidence = vconf;
 }

@@ -17,6 +17,17 @@
 #define N COACH_SAL_N
 #define NN (N * N)
 
+/* Regions of the object map closer than this (cells) form one subject. */
+#define MERGE_GAP 3
+#define MAX_CAND 48
+
+typedef struct region {
+    double mass, sx, sy;
+    int x0, y0, x1, y1;
+    unsigned sides;
+    int parent;
+} region;
+
 struct coach_saliency {
     int max_w, max_h;
     coach_fft_plan plan;
@@ -25,8 +36,7 @@ struct coach_saliency {
     float cx[2 * NN];      /* complex work                               */
     float scratch[2 * NN];
     float pad[(N + 4) * (N + 4)];
-    float lab_mass[NN];
-    uint8_t lab_sides[NN];
+    region *regions;       /* the MAX_CAND heaviest regions             */
     float la[NN], lb[NN];  /* log amplitude, its local mean              */
     float map[NN];
     int16_t label[NN];
@@ -43,7 +53,8 @@ coach_saliency *coach_saliency_create(int max_w, int max_h)
     s->max_w = max_w;
     s->max_h = max_h;
     s->rows = malloc((size_t)max_h * N * sizeof(float));
-    if (!s->rows || coach_fft_plan_init(&s->plan, N) != 0) {
+    s->regions = malloc(MAX_CAND * sizeof(region));
+    if (!s->rows || !s->regions || coach_fft_plan_init(&s->plan, N) != 0) {
         coach_saliency_destroy(s);
         return NULL;
     }
@@ -55,6 +66,7 @@ void coach_saliency_destroy(coach_saliency *s)
     if (!s)
         return;
     free(s->rows);
+    free(s->regions);
     free(s);
 }
 
@@ -190,38 +202,44 @@ static int spectral_residual(coach_saliency *s, const float *luma, int w, int h)
     return 1;
 }
 
-/* The subject: among the 8-connected regions of the object map, the one
- * holding the most saliency. */
+/* The subject: the 8-connected regions of the object map, grouped when
+ * their boxes lie within MERGE_GAP cells of each other (the spectral
+ * residual outlines a larger object, and its outline can break into
+ * pieces); the group holding the most saliency wins. */static int root(region *r, int i)
+{
+    while (r[i].parent != i)
+        i = r[i].parent = r[r[i].parent].parent;
+    return i;
+}
+
 static void find_subject(coach_saliency *s, float thr, coach_salient *out)
 {
     memset(s->label, 0, sizeof s->label);
-    int nlab = 0, best = 0;
-    double best_mass = 0, total = 0;
-    double bsx = 0, bsy = 0;
-    int bx0 = 0, by0 = 0, bx1 = 0, by1 = 0;
+    region *rg = s->regions;
+    int nlab = 0;
+    double total = 0;
     for (int i = 0; i < NN; i++) {
         if (s->map[i] <= thr || s->label[i])
             continue;
+        region r = {0, 0, 0, N, N, -1, -1, 0, 0};
+        int sp = 0;
         nlab++;
-        int sp = 0, x0 = N, y0 = N, x1 = -1, y1 = -1;
-        double mass = 0, sx = 0, sy = 0;
-        unsigned sides = 0;
         s->stack[sp++] = (int16_t)i;
         s->label[i] = (int16_t)nlab;
         while (sp) {
             int p = s->stack[--sp], px = p % N, py = p / N;
             double v = s->map[p] - thr;
-            mass += v;
-            sx += v * (px + 0.5);
-            sy += v * (py + 0.5);
-            if (px < x0) x0 = px;
-            if (px > x1) x1 = px;
-            if (py < y0) y0 = py;
-            if (py > y1) y1 = py;
-            if (px == 0) sides |= COACH_EDGE_LEFT;
-            if (px == N - 1) sides |= COACH_EDGE_RIGHT;
-            if (py == 0) sides |= COACH_EDGE_TOP;
-            if (py == N - 1) sides |= COACH_EDGE_BOTTOM;
+            r.mass += v;
+            r.sx += v * (px + 0.5);
+            r.sy += v * (py + 0.5);
+            if (px < r.x0) r.x0 = px;
+            if (px > r.x1) r.x1 = px;
+            if (py < r.y0) r.y0 = py;
+            if (py > r.y1) r.y1 = py;
+            if (px == 0) r.sides |= COACH_EDGE_LEFT;
+            if (px == N - 1) r.sides |= COACH_EDGE_RIGHT;
+            if (py == 0) r.sides |= COACH_EDGE_TOP;
+            if (py == N - 1) r.sides |= COACH_EDGE_BOTTOM;
             for (int dy = -1; dy <= 1; dy++)
                 for (int dx = -1; dx <= 1; dx++) {
                     int qx = px + dx, qy = py + dy;
@@ -234,32 +252,79 @@ static void find_subject(coach_saliency *s, float thr, coach_salient *out)
                     }
                 }
         }
-        total += mass;
-        s->lab_mass[nlab] = (float)mass;
-        s->lab_sides[nlab] = (uint8_t)sides;
-        if (mass > best_mass) {
-            best_mass = mass;
-            best = nlab;
-            bsx = sx / mass;
-            bsy = sy / mass;
-            bx0 = x0; by0 = y0; bx1 = x1; by1 = y1;
+        total += r.mass;
+        /* Keep the MAX_CAND heaviest regions, heaviest first. */
+        int n = nlab - 1 < MAX_CAND ? nlab - 1 : MAX_CAND;
+        if (n == MAX_CAND && r.mass <= rg[MAX_CAND - 1].mass)
+            continue;
+        int k = n < MAX_CAND ? n : MAX_CAND - 1;
+        while (k > 0 && rg[k - 1].mass < r.mass) {
+            rg[k] = rg[k - 1];
+            k--;
+        }
+        rg[k] = r;
+    }
+    int nr = nlab < MAX_CAND ? nlab : MAX_CAND;
+    if (nr == 0)
+        return;
+    /* Intrusions: regions that reach a border and carry at least a tenth
+     * of the salient mass. */
+    for (int i = 0; i < nr; i++)
+        if (rg[i].mass >= 0.1 * total)
+            out->edges |= rg[i].sides;
+    /* Single-link grouping of regions with at least 2 % of the mass. */
+    for (int i = 0; i < nr; i++)
+        rg[i].parent = i;
+    for (int i = 0; i < nr; i++) {
+        if (rg[i].mass < 0.02 * total)
+            break;
+        for (int j = i + 1; j < nr; j++) {
+            if (rg[j].mass < 0.02 * total)
+                break;
+            int gx = rg[i].x0 > rg[j].x1 ? rg[i].x0 - rg[j].x1 : rg[j].x0 - rg[i].x1;
+            int gy = rg[i].y0 > rg[j].y1 ? rg[i].y0 - rg[j].y1 : rg[j].y0 - rg[i].y1;
+            if (gx <= MERGE_GAP && gy <= MERGE_GAP) {
+                int a = root(rg, i), b = root(rg, j);
+                if (a != b)
+                    rg[b].parent = a;
+            }
         }
     }
-    (void)best;
+    int best = -1;
+    double best_mass = 0;
+    for (int i = 0; i < nr; i++) {
+        if (root(rg, i) != i)
+            continue;
+        double m = 0;
+        for (int j = i; j < nr; j++)
+            if (root(rg, j) == i)
+                m += rg[j].mass;
+        if (m > best_mass) {
+            best_mass = m;
+            best = i;
+        }
+    }
     /* A subject holds at least a third of the salient mass; when the mass
      * is spread over many small regions (texture, noise) there is none. */
-    if (nlab == 0 || best_mass < total / 3.0)
+    if (best < 0 || best_mass < total / 3.0)
         return;
+    double sx = 0, sy = 0;
+    int x0 = N, y0 = N, x1 = -1, y1 = -1;
+    for (int j = best; j < nr; j++) {
+        if (root(rg, j) != best)
+            continue;
+        sx += rg[j].sx;
+        sy += rg[j].sy;
+        if (rg[j].x0 < x0) x0 = rg[j].x0;
+        if (rg[j].y0 < y0) y0 = rg[j].y0;
+        if (rg[j].x1 > x1) x1 = rg[j].x1;
+        if (rg[j].y1 > y1) y1 = rg[j].y1;
+    }
     out->has_subject = 1;
-    out->subject.x = bsx / N;
-    out->subject.y = bsy / N;
-    out->subject.w = (double)(bx1 - bx0 + 1) / N;
-    out->subject.h = (double)(by1 - by0 + 1) / N;
-    /* Intrusions: object-map regions that reach a border and carry at
-     * least a tenth of the salient mass. */
-    for (int lab = 1; lab <= nlab; lab++)
-        if (s->lab_mass[lab] >= 0.1 * total)
-            out->edges |= s->lab_sides[lab];
+    out->subject.x = sx / best_mass / N;
+    out->subject.y = sy / best_mass / N;
+    out->subject.w = (double)(x1 - x0 + 1) / N;
+    out->subject.h = (double)(y1 - y0 + 1) / N;
 }
 
 const float *coach_saliency_run(coach_saliency *s, const float *luma, int w, int h,
