@@ -48,6 +48,9 @@ PKG_CFLAGS := $(shell pkg-config --cflags $(PKGS) 2>/dev/null)
 PKG_LIBS   := $(shell pkg-config --libs $(PKGS) 2>/dev/null)
 TEST_CFLAGS := $(shell pkg-config --cflags $(TEST_PKGS) 2>/dev/null)
 TEST_LIBS   := $(shell pkg-config --libs $(TEST_PKGS) 2>/dev/null)
+# Per-test link flags.  test_coach counts every allocation the library makes
+# (zero per frame in steady state): the allocators are wrapped at link time.
+LDLIBS_test_coach := -Wl,--wrap=malloc,--wrap=calloc,--wrap=realloc,--wrap=aligned_alloc,--wrap=posix_memalign
 
 CFLAGS_ALL := -std=c11 -D_GNU_SOURCE -I. $(WARN) $(OPT_$(VARIANT)) $(PKG_CFLAGS) $(CFLAGS)
 LDFLAGS_ALL := $(OPT_$(VARIANT)) $(LDFLAGS)

@@ -7,7 +7,13 @@
 #include <setjmp.h>
 #include <cmocka.h>
 
+#include <ctype.h>
+#include <math.h>
+#include <stdlib.h>
+#include <string.h>
+
 #include "coach/coach.h"
+#include "coach/coach_internal.h"
 
 /* ==== section A ==== */
 
@@ -27,6 +33,734 @@ static void test_format_bpp_layouts(void **state)
     assert_int_equal(coach_format_bpp(COACH_FMT_NONE), 0);
 }
 
+/* ---- helpers (section A) ---- */
+
+/* sRGB encoding, IEC 61966-2-1:1999 5.2 (forward transfer), for building
+ * test frames independently of the library's LUT. */
+static double a_srgb_encode(double l)
+{
+    return l <= 0.0031308 ? 12.92 * l : 1.055 * pow(l, 1 / 2.4) - 0.055;
+}
+
+/* An XRGB8888 frame (B,G,R,X bytes) filled by a callback. */
+typedef void (*a_pix_fn)(int x, int y, void *ctx, uint8_t rgb[3]);
+static coach_frame a_xrgb(int w, int h, a_pix_fn fn, void *ctx)
+{
+    uint8_t *p = malloc((size_t)w * h * 4);
+    assert_non_null(p);
+    for (int y = 0; y < h; y++)
+        for (int x = 0; x < w; x++) {
+            uint8_t c[3];
+            fn(x, y, ctx, c);
+            uint8_t *q = p + ((size_t)y * w + x) * 4;
+            q[0] = c[2];
+            q[1] = c[1];
+            q[2] = c[0];
+            q[3] = 0xff;
+        }
+    coach_frame f = { .data = p, .w = w, .h = h, .stride = w * 4, .format = COACH_FMT_XRGB8888 };
+    return f;
+}
+
+static void a_uniform(int x, int y, void *ctx, uint8_t c[3])
+{
+    (void)x;
+    (void)y;
+    memcpy(c, ctx, 3);
+}
+
+static int a_analyze_once(const coach_frame *f, coach_result *r)
+{
+    coach_config cfg;
+    coach_config_default(&cfg);
+    coach_analyzer *a = coach_create(&cfg);
+    assert_non_null(a);
+    int rc = coach_analyze(a, f, 0.0, r);
+    coach_destroy(a);
+    return rc;
+}
+
+static double a_hist_mean(const coach_result *r)
+{
+    double s = 0, n = 0;
+    for (int v = 0; v < 256; v++) {
+        s += (double)v * r->hist[v];
+        n += r->hist[v];
+    }
+    return s / n;
+}
+
+/* ---- tone ---- */
+
+/* IEC 61966-2-1:1999 (sRGB), 5.2: 8-bit 118 decodes to 0.1812 and 128 to
+ * 0.2159 linear (the standard's formula evaluated; 4 decimals). */
+static void test_srgb_decode_iec61966(void **state)
+{
+    (void)state;
+    assert_float_equal(coach_srgb_decode(118 / 255.0), 0.1812, 0.00005);
+    assert_float_equal(coach_srgb_decode(128 / 255.0), 0.2159, 0.00005);
+    /* linear segment below 0.04045: V / 12.92 (IEC 61966-2-1 5.2) */
+    assert_float_equal(coach_srgb_decode(10 / 255.0), 10 / 255.0 / 12.92, 1e-12);
+    assert_float_equal(coach_srgb_decode(1.0), 1.0, 1e-12);
+}
+
+/* 18 % grey: linear 0.18 encodes to sRGB code 118 (IEC 61966-2-1 5.2), and
+ * a frame of code 118 has a relative luminance whose CIE L* is 49.5
+ * (CIE 15:2004, L* = 116 (Y/Yn)^(1/3) - 16) and reads 0 EV. */
+static void test_grey18_code118_lstar(void **state)
+{
+    (void)state;
+    assert_int_equal((int)lround(255 * a_srgb_encode(0.18)), 118);
+    uint8_t c[3] = { 118, 118, 118 };
+    coach_frame f = a_xrgb(64, 48, a_uniform, c);
+    coach_result r;
+    assert_int_equal(a_analyze_once(&f, &r), 0);
+    double lstar = 116 * cbrt(r.mean_luma) - 16;
+    /* CIE 15: L* = 49.5 for Y = 18 %; code 118 is 0.1812, L* 49.6 */
+    assert_float_equal(lstar, 49.5, 0.2);
+    assert_float_equal(116 * cbrt(0.18) - 16, 49.5, 0.01);
+    assert_float_equal(r.exposure_ev, 0.0, 0.02);
+    free((void *)f.data);
+}
+
+/* ITU-R BT.709-6 item 3.2: E'Y = 0.2126 E'R + 0.7152 E'G + 0.0722 E'B.
+ * Full-scale primaries must land on round(255 * weight). */
+static void test_luma_bt709_weights(void **state)
+{
+    (void)state;
+    static const struct { uint8_t rgb[3]; double wgt; } prim[] = {
+        { { 255, 0, 0 }, 0.2126 }, { { 0, 255, 0 }, 0.7152 }, { { 0, 0, 255 }, 0.0722 },
+        { { 255, 255, 255 }, 1.0 },
+    };
+    for (size_t i = 0; i < sizeof(prim) / sizeof(prim[0]); i++) {
+        coach_frame f = a_xrgb(32, 32, a_uniform, (void *)prim[i].rgb);
+        coach_result r;
+        assert_int_equal(a_analyze_once(&f, &r), 0);
+        int want = (int)lround(255 * prim[i].wgt);
+        assert_int_equal(r.hist[want], 32 * 32); /* BT.709-6 3.2 */
+        free((void *)f.data);
+    }
+}
+
+/* Builds Y'CbCr from R'G'B' per ITU-R BT.601-7 (Kr 0.299, Kb 0.114) or
+ * BT.709-6 (Kr 0.2126, Kb 0.0722), full or limited ("studio") range:
+ * Y' = Kr R + (1-Kr-Kb) G + Kb B, Cb = (B - Y') / (2 (1-Kb)),
+ * Cr = (R - Y') / (2 (1-Kr)); limited: 16 + 219 Y', 128 + 224 C. */
+static void a_rgb_to_ycc(const uint8_t rgb[3], int bt709, int full, uint8_t ycc[3])
+{
+    double kr = bt709 ? 0.2126 : 0.299, kb = bt709 ? 0.0722 : 0.114;
+    double R = rgb[0] / 255.0, G = rgb[1] / 255.0, B = rgb[2] / 255.0;
+    double Y = kr * R + (1 - kr - kb) * G + kb * B;
+    double cb = (B - Y) / (2 * (1 - kb)), cr = (R - Y) / (2 * (1 - kr));
+    if (full) {
+        ycc[0] = (uint8_t)lround(255 * Y);
+        ycc[1] = (uint8_t)lround(128 + 255 * cb);
+        ycc[2] = (uint8_t)lround(128 + 255 * cr);
+    } else {
+        ycc[0] = (uint8_t)lround(16 + 219 * Y);
+        ycc[1] = (uint8_t)lround(128 + 224 * cb);
+        ycc[2] = (uint8_t)lround(128 + 224 * cr);
+    }
+}
+
+/* A smooth colour field, constant over 2x2 pixel cells so 4:2:0 chroma
+ * subsampling loses nothing. */
+static void a_field(int x, int y, void *ctx, uint8_t c[3])
+{
+    (void)ctx;
+    x /= 2;
+    y /= 2;
+    c[0] = (uint8_t)(30 + (x * 7) % 200);
+    c[1] = (uint8_t)(20 + (y * 5) % 210);
+    c[2] = (uint8_t)(40 + ((x + y) * 3) % 180);
+}
+
+/* YUYV and NV12 frames of the same picture give the same luma histogram and
+ * analysis image as the RGB frame, within rounding (BT.709-6 matrix, both
+ * ranges; BT.601-7 matrix for the colour planes). */
+static void test_luma_yuv_matches_rgb(void **state)
+{
+    (void)state;
+    const int w = 160, h = 120;
+    coach_frame rgbf = a_xrgb(w, h, a_field, NULL);
+    uint8_t *yuyv = malloc((size_t)w * h * 2), *nv12 = malloc((size_t)w * h * 3 / 2);
+    assert_non_null(yuyv);
+    assert_non_null(nv12);
+    coach_config cfg;
+    coach_config_default(&cfg);
+    coach_result rr, ry, rn;
+    coach_aimg ir, iy, in;
+    coach_tone *tr = coach_tone_create(w, h), *ty = coach_tone_create(w, h),
+               *tn = coach_tone_create(w, h);
+    assert_int_equal(coach_tone_run(tr, &rgbf, &rr, &ir), 0);
+    for (int mode = 0; mode < 4; mode++) {
+        int bt709 = mode < 2, full = mode & 1;
+        for (int y = 0; y < h; y++)
+            for (int x = 0; x < w; x++) {
+                uint8_t c[3], ycc[3];
+                a_field(x, y, NULL, c);
+                a_rgb_to_ycc(c, bt709, full, ycc);
+                yuyv[(size_t)y * w * 2 + x * 2] = ycc[0];
+                yuyv[(size_t)y * w * 2 + (x & ~1) * 2 + 1 + 2 * (x & 1)] = x & 1 ? ycc[2] : ycc[1];
+                nv12[(size_t)y * w + x] = ycc[0];
+                nv12[(size_t)w * h + (size_t)(y / 2) * w + (x & ~1) + (x & 1)] =
+                    x & 1 ? ycc[2] : ycc[1];
+            }
+        coach_frame fy = { .data = yuyv, .w = w, .h = h, .stride = w * 2, .format = COACH_FMT_YUYV,
+                           .matrix = bt709 ? COACH_MATRIX_BT709 : COACH_MATRIX_BT601,
+                           .range = full ? COACH_RANGE_FULL : COACH_RANGE_LIMITED };
+        coach_frame fn = fy;
+        fn.data = nv12;
+        fn.stride = w;
+        fn.format = COACH_FMT_NV12;
+        assert_int_equal(coach_tone_run(ty, &fy, &ry, &iy), 0);
+        assert_int_equal(coach_tone_run(tn, &fn, &rn, &in), 0);
+        assert_int_equal(iy.w, ir.w);
+        assert_int_equal(iy.h, ir.h);
+        for (int i = 0; i < ir.w * ir.h; i++) {
+            /* colour planes: R'G'B' back from Y'CbCr within rounding of
+             * the 8-bit codes (about 1.5 codes in limited range) */
+            assert_float_equal(iy.r[i], ir.r[i], 2.0);
+            assert_float_equal(iy.g[i], ir.g[i], 2.0);
+            assert_float_equal(iy.b[i], ir.b[i], 2.0);
+            assert_float_equal(in.r[i], iy.r[i], 0.01); /* same pixels, other layout */
+            if (bt709) /* Y' is the BT.709 luma of R'G'B' itself */
+                assert_float_equal(iy.luma[i], ir.luma[i], 1.01);
+        }
+        if (bt709) {
+            assert_float_equal(a_hist_mean(&ry), a_hist_mean(&rr), 0.5);
+            assert_float_equal(ry.exposure_ev, rr.exposure_ev, 0.02);
+        }
+        assert_float_equal(rn.sharpness, ry.sharpness, 1e-9);
+        assert_float_equal(ry.colourfulness, rr.colourfulness, 0.01 * rr.colourfulness);
+    }
+    coach_tone_destroy(tr);
+    coach_tone_destroy(ty);
+    coach_tone_destroy(tn);
+    free(yuyv);
+    free(nv12);
+    free((void *)rgbf.data);
+}
+
+/* Uniform grey frames at whole stops around middle grey: the grey code is
+ * the sRGB encoding (IEC 61966-2-1) of 0.18 * 2^k, and exposure_ev must read
+ * k within 0.1 stop (acceptance criterion; EV = log2(mean / 0.18)). */
+static void test_exposure_whole_stops(void **state)
+{
+    (void)state;
+    for (int k = -4; k <= 2; k++) {
+        int code = (int)lround(255 * a_srgb_encode(0.18 * pow(2, k)));
+        uint8_t c[3] = { (uint8_t)code, (uint8_t)code, (uint8_t)code };
+        coach_frame f = a_xrgb(96, 64, a_uniform, c);
+        coach_result r;
+        assert_int_equal(a_analyze_once(&f, &r), 0);
+        assert_float_equal(r.exposure_ev, (double)k, 0.1);
+        free((void *)f.data);
+    }
+}
+
+/* Clip fractions: luma >= 250 is a clipped highlight, <= 5 a blocked
+ * shadow (thresholds of the issue, common practice for 8-bit video).
+ * A frame with known shares of pixels at and around the thresholds. */
+static void a_clip_pattern(int x, int y, void *ctx, uint8_t c[3])
+{
+    (void)ctx;
+    int i = y * 100 + x; /* 100 x 100 frame, i = 0..9999 */
+    int v = i < 300 ? 250 : i < 500 ? 255 : i < 700 ? 249 : i < 1800 ? 5 : i < 1900 ? 0 : i < 2000 ? 6 : 128;
+    c[0] = c[1] = c[2] = (uint8_t)v;
+}
+
+static void test_clip_fractions_known(void **state)
+{
+    (void)state;
+    coach_frame f = a_xrgb(100, 100, a_clip_pattern, NULL);
+    coach_result r;
+    assert_int_equal(a_analyze_once(&f, &r), 0);
+    assert_float_equal(r.clip_high, 0.05, 0.005); /* 500 of 10000 at >= 250 */
+    assert_float_equal(r.clip_low, 0.12, 0.005);  /* 1200 of 10000 at <= 5 */
+    free((void *)f.data);
+}
+
+/* Hasler & Suesstrunk 2003, eq. (3): M = sqrt(s_rg^2 + s_yb^2) + 0.3
+ * sqrt(m_rg^2 + m_yb^2), rg = R - G, yb = (R + G)/2 - B, population moments
+ * on 8-bit sRGB.  Grey has M = 0; other images must match the formula
+ * evaluated here in double precision within 1 %. */
+static void a_random(int x, int y, void *ctx, uint8_t c[3])
+{
+    uint32_t s = (uint32_t)(x * 73856093u) ^ (uint32_t)(y * 19349663u) ^ *(uint32_t *)ctx;
+    s ^= s >> 13;
+    s *= 0x5bd1e995u;
+    s ^= s >> 15;
+    c[0] = (uint8_t)s;
+    c[1] = (uint8_t)(s >> 8);
+    c[2] = (uint8_t)(s >> 16) / 2; /* bias toward yellow */
+}
+
+static void a_halves(int x, int y, void *ctx, uint8_t c[3])
+{
+    (void)y;
+    (void)ctx;
+    if (x < 40) {
+        c[0] = 220; c[1] = 40; c[2] = 30;
+    } else {
+        c[0] = 20; c[1] = 90; c[2] = 200;
+    }
+}
+
+static double a_hs_formula(const coach_frame *f)
+{
+    double srg = 0, syb = 0, qrg = 0, qyb = 0, n = (double)f->w * f->h;
+    for (int y = 0; y < f->h; y++)
+        for (int x = 0; x < f->w; x++) {
+            const uint8_t *p = f->data + (size_t)y * f->stride + x * 4;
+            double R = p[2], G = p[1], B = p[0];
+            double rg = R - G, yb = 0.5 * (R + G) - B;
+            srg += rg;
+            syb += yb;
+            qrg += rg * rg;
+            qyb += yb * yb;
+        }
+    double mrg = srg / n, myb = syb / n;
+    return sqrt(qrg / n - mrg * mrg + qyb / n - myb * myb) + 0.3 * sqrt(mrg * mrg + myb * myb);
+}
+
+static void test_colourfulness_hasler_formula(void **state)
+{
+    (void)state;
+    uint8_t grey[3] = { 90, 90, 90 };
+    coach_frame f = a_xrgb(64, 64, a_uniform, grey);
+    coach_result r;
+    assert_int_equal(a_analyze_once(&f, &r), 0);
+    assert_true(r.colourfulness == 0.0); /* H&S 2003: grey has M = 0 */
+    free((void *)f.data);
+
+    uint32_t seed = 12345;
+    coach_frame fr = a_xrgb(200, 150, a_random, &seed);
+    assert_int_equal(a_analyze_once(&fr, &r), 0);
+    double want = a_hs_formula(&fr);
+    assert_true(want > 50);
+    assert_float_equal(r.colourfulness, want, 0.01 * want);
+    free((void *)fr.data);
+
+    coach_frame fh = a_xrgb(80, 60, a_halves, NULL);
+    assert_int_equal(a_analyze_once(&fh, &r), 0);
+    want = a_hs_formula(&fh);
+    assert_float_equal(r.colourfulness, want, 0.01 * want);
+    free((void *)fh.data);
+}
+
+/* Hasler & Suesstrunk 2003, Table 2: metric values of the categories
+ * not (0), slightly (15), moderately (33), averagely (45), quite (59),
+ * highly (82), extremely (109) colourful; a value earns the word of the
+ * highest category it reaches. */
+static void test_colourfulness_word_categories(void **state)
+{
+    (void)state;
+    static const struct { double m; const char *w; } cases[] = {
+        { 0, "not colourful" },         { 14.9, "not colourful" },
+        { 15, "slightly colourful" },   { 32.9, "slightly colourful" },
+        { 33, "moderately colourful" }, { 44.9, "moderately colourful" },
+        { 45, "averagely colourful" },  { 58.9, "averagely colourful" },
+        { 59, "quite colourful" },      { 81.9, "quite colourful" },
+        { 82, "highly colourful" },     { 108.9, "highly colourful" },
+        { 109, "extremely colourful" }, { 300, "extremely colourful" },
+    };
+    for (size_t i = 0; i < sizeof(cases) / sizeof(cases[0]); i++)
+        assert_string_equal(coach_colourfulness_word(cases[i].m), cases[i].w);
+}
+
+/* Variance of the 3x3 Laplacian [0 1 0; 1 -4 1; 0 1 0] over every pixel
+ * with OpenCV's default border BORDER_REFLECT_101 ("gfedcb|abcdefgh|gfedcba",
+ * OpenCV core docs, cv::BorderTypes), evaluated here directly; the same
+ * against cv2 itself on photographs is tests/check_laplacian.sh. */
+static int a_reflect101(int i, int n)
+{
+    return i < 0 ? -i : i >= n ? 2 * n - 2 - i : i;
+}
+
+static void test_sharpness_laplacian_reflect101(void **state)
+{
+    (void)state;
+    uint32_t seed = 777;
+    const int w = 97, h = 61; /* odd sizes: exercises the row tails */
+    coach_frame f = a_xrgb(w, h, a_random, &seed);
+    coach_result r;
+    assert_int_equal(a_analyze_once(&f, &r), 0);
+    /* luma per BT.709-6 rounded to 8 bits, as documented for the pass */
+    double *Y = malloc(sizeof(double) * w * h);
+    assert_non_null(Y);
+    for (int y = 0; y < h; y++)
+        for (int x = 0; x < w; x++) {
+            const uint8_t *p = f.data + (size_t)y * f.stride + x * 4;
+            Y[y * w + x] = (13933.0 * p[2] + 46871.0 * p[1] + 4732.0 * p[0] + 32768) / 65536;
+            Y[y * w + x] = floor(Y[y * w + x]);
+        }
+    double s = 0, q = 0;
+    for (int y = 0; y < h; y++)
+        for (int x = 0; x < w; x++) {
+            double L = Y[a_reflect101(y - 1, h) * w + x] + Y[a_reflect101(y + 1, h) * w + x] +
+                       Y[y * w + a_reflect101(x - 1, w)] + Y[y * w + a_reflect101(x + 1, w)] -
+                       4 * Y[y * w + x];
+            s += L;
+            q += L * L;
+        }
+    double n = (double)w * h, var = q / n - (s / n) * (s / n);
+    assert_float_equal(r.sharpness, var, 1e-9 * var);
+    free(Y);
+    free((void *)f.data);
+}
+
+/* ---- score ---- */
+
+/* A first-order low-pass of time constant tau answers a unit step with
+ * 1 - exp(-t / tau) (any control-engineering text); sampled at irregular
+ * intervals the smoother must follow that curve exactly. */
+static void test_score_smoothing_step_response(void **state)
+{
+    (void)state;
+    const double tau = 0.5;
+    double y = 0, t = 0;
+    static const double dts[] = { 0.033, 0.017, 0.050, 0.100, 0.033, 0.250, 0.040, 0.400 };
+    for (size_t i = 0; i < sizeof(dts) / sizeof(dts[0]); i++) {
+        y = coach_smooth_step(y, 100.0, dts[i], tau);
+        t += dts[i];
+        assert_float_equal(y, 100.0 * (1 - exp(-t / tau)), 1e-9);
+    }
+    /* through the analyzer state as well */
+    coach_config cfg;
+    coach_config_default(&cfg);
+    coach_score_state s;
+    coach_score_reset(&s);
+    coach_result r;
+    memset(&r, 0, sizeof(r));
+    r.score_raw = 0;
+    coach_score_update(&s, &cfg, 10.0, &r);
+    r.score_raw = 80;
+    coach_score_update(&s, &cfg, 10.0 + cfg.smooth_tau_s, &r);
+    assert_float_equal(r.score, 80 * (1 - exp(-1.0)), 1e-9); /* one tau: 63.2 % */
+}
+
+/* Ready with hysteresis (enter >= ready_enter held ready_dwell_s, leave
+ * < ready_leave): a score oscillating between the two thresholds never
+ * changes the state, and brief peaks over the upper one never enter it. */
+static void test_ready_hysteresis_no_flicker(void **state)
+{
+    (void)state;
+    coach_config cfg;
+    coach_config_default(&cfg);
+    cfg.smooth_tau_s = 0; /* drive the ready logic with the raw score */
+    coach_score_state s;
+    coach_score_reset(&s);
+    coach_result r;
+    memset(&r, 0, sizeof(r));
+    double t = 0, dt = 1 / 30.0;
+    /* peaks above enter shorter than the dwell: never ready */
+    for (int i = 0; i < 310; i++, t += dt) { /* ends on a low stretch */
+        r.score_raw = (i / 10) % 2 ? cfg.ready_enter + 5 : cfg.ready_leave - 5;
+        coach_score_update(&s, &cfg, t, &r);
+        assert_int_equal(r.ready, 0);
+    }
+    /* held above enter: ready once the dwell has passed, not before */
+    double t0 = t;
+    for (int i = 0; i < 60; i++, t += dt) {
+        r.score_raw = cfg.ready_enter + 1;
+        coach_score_update(&s, &cfg, t, &r);
+        if (t - t0 < cfg.ready_dwell_s - 1e-6)
+            assert_int_equal(r.ready, 0);
+        else if (t - t0 > cfg.ready_dwell_s + 1e-6)
+            assert_int_equal(r.ready, 1);
+    }
+    /* oscillating between the thresholds: stays ready, never flickers */
+    for (int i = 0; i < 300; i++, t += dt) {
+        r.score_raw = i % 2 ? cfg.ready_enter - 0.1 : cfg.ready_leave + 0.1;
+        coach_score_update(&s, &cfg, t, &r);
+        assert_int_equal(r.ready, 1);
+    }
+    r.score_raw = cfg.ready_leave - 0.1;
+    coach_score_update(&s, &cfg, t, &r);
+    assert_int_equal(r.ready, 0);
+    /* and between the thresholds from below: stays not ready */
+    for (int i = 0; i < 300; i++, t += dt) {
+        r.score_raw = i % 2 ? cfg.ready_enter - 0.1 : cfg.ready_leave + 0.1;
+        coach_score_update(&s, &cfg, t, &r);
+        assert_int_equal(r.ready, 0);
+    }
+}
+
+/* Contributions are 100 w v / sum(w) and add up to the score; hints come
+ * worst term first (most points lost), at most three, in plain words with
+ * the numbers the user acts on. */
+static void test_score_hints_worst_first(void **state)
+{
+    (void)state;
+    coach_config cfg;
+    coach_config_default(&cfg); /* landscape, thirds */
+    coach_result r;
+    memset(&r, 0, sizeof(r));
+    r.width = 1920;
+    r.height = 1080;
+    r.exposure_ev = 0.1;
+    r.clip_high = 0.06; /* badly clipped */
+    r.clip_low = 0.0;
+    r.sharpness = 400;
+    r.colourfulness = 50;
+    r.has_tilt = 1;
+    r.tilt_deg = 2.14; /* right end higher */
+    r.tilt_confidence = 1;
+    r.has_horizon = 1;
+    r.horizon_y = 0.45; /* near the middle */
+    coach_score_terms(&cfg, 0, &r);
+    double sum = 0, wsum = 0;
+    for (int i = 0; i < r.nterms; i++) {
+        sum += r.terms[i].contribution;
+        wsum += r.terms[i].weight;
+    }
+    for (int i = 0; i < r.nterms; i++)
+        assert_float_equal(r.terms[i].contribution,
+                           100 * r.terms[i].weight * r.terms[i].value / wsum, 1e-9);
+    assert_float_equal(sum, r.score_raw, 1e-9);
+    coach_score_hints(&cfg, &r);
+    assert_true(r.nhints >= 2 && r.nhints <= COACH_MAX_HINTS);
+    /* level loses 1.5 * (1 - 1/(1+2.14^2)) = 1.23 points of weight,
+     * highlights 0.8, horizon 1.0 * 0.78: level first */
+    assert_string_equal(r.hints[0], "Rotate the camera 2.1\xc2\xb0 counterclockwise");
+    assert_non_null(strstr(r.hints[1], "Highlights are clipping"));
+    assert_non_null(strstr(r.hints[2], "horizon on the upper third"));
+    r.tilt_deg = -0.9;
+    coach_score_terms(&cfg, 0, &r);
+    coach_score_hints(&cfg, &r);
+    assert_non_null(strstr(r.hints[0], "Highlights are clipping: try about -1.3 stops"));
+}
+
+/* ---- JSON ---- */
+
+/* A small JSON (RFC 8259) syntax checker for the test: returns the end of
+ * the value at p or NULL. */
+static const char *a_json_value(const char *p);
+static const char *a_ws(const char *p)
+{
+    while (*p == ' ' || *p == '\n' || *p == '\t' || *p == '\r')
+        p++;
+    return p;
+}
+static const char *a_json_string(const char *p)
+{
+    if (*p++ != '"')
+        return NULL;
+    while (*p && *p != '"') {
+        if ((unsigned char)*p < 0x20)
+            return NULL;
+        if (*p == '\\') {
+            p++;
+            if (*p == 'u') {
+                for (int i = 1; i <= 4; i++)
+                    if (!isxdigit((unsigned char)p[i]))
+                        return NULL;
+                p += 4;
+            } else if (!strchr("\"\\/bfnrt", *p)) {
+                return NULL;
+            }
+        }
+        p++;
+    }
+    return *p == '"' ? p + 1 : NULL;
+}
+static const char *a_json_value(const char *p)
+{
+    p = a_ws(p);
+    if (*p == '{' || *p == '[') {
+        char close = *p == '{' ? '}' : ']';
+        p = a_ws(p + 1);
+        if (*p == close)
+            return p + 1;
+        for (;;) {
+            if (close == '}') {
+                if (!(p = a_json_string(a_ws(p))))
+                    return NULL;
+                p = a_ws(p);
+                if (*p++ != ':')
+                    return NULL;
+            }
+            if (!(p = a_json_value(p)))
+                return NULL;
+            p = a_ws(p);
+            if (*p == close)
+                return p + 1;
+            if (*p++ != ',')
+                return NULL;
+        }
+    }
+    if (*p == '"')
+        return a_json_string(p);
+    if (!strncmp(p, "true", 4) || !strncmp(p, "null", 4))
+        return p + 4;
+    if (!strncmp(p, "false", 5))
+        return p + 5;
+    const char *q = p;
+    if (*q == '-')
+        q++;
+    if (!isdigit((unsigned char)*q))
+        return NULL;
+    if (*q == '0' && isdigit((unsigned char)q[1]))
+        return NULL;
+    while (isdigit((unsigned char)*q))
+        q++;
+    if (*q == '.') {
+        q++;
+        if (!isdigit((unsigned char)*q))
+            return NULL;
+        while (isdigit((unsigned char)*q))
+            q++;
+    }
+    return q;
+}
+
+static void test_json_structure_no_nan(void **state)
+{
+    (void)state;
+    uint32_t seed = 99;
+    coach_frame f = a_xrgb(128, 96, a_random, &seed);
+    coach_result r;
+    assert_int_equal(a_analyze_once(&f, &r), 0);
+    free((void *)f.data);
+    /* poison what an analysis might leave odd: non-finite numbers must
+     * come out as null, absent measurements as null */
+    r.exposure_ev = -INFINITY;
+    r.sharpness = NAN;
+    r.has_tilt = 1;
+    r.tilt_deg = NAN;
+    r.level_source = COACH_LEVEL_HORIZON;
+    r.has_subject = 1;
+    r.subject = (coach_box){ 0.3, 0.4, 0.1, 0.2 };
+    r.placement = 0.05;
+    r.placement_point = 1;
+    r.edge_intrusions = COACH_EDGE_LEFT | COACH_EDGE_BOTTOM;
+    char buf[8192];
+    int n = coach_json(&r, "dir/\"odd\"\\name\x01.png", buf, sizeof(buf));
+    assert_true(n > 0 && (size_t)n < sizeof(buf));
+    assert_int_equal((int)strlen(buf), n);
+    const char *end = a_json_value(buf);
+    assert_non_null(end); /* RFC 8259 syntax */
+    assert_int_equal(*a_ws(end), 0);
+    assert_null(strstr(buf, "nan"));
+    assert_null(strstr(buf, "inf"));
+    static const char *const keys[] = {
+        "\"file\":\"dir/\\\"odd\\\"\\\\name\\u0001.png\"", "\"width\":128", "\"height\":96",
+        "\"exposure_ev\":null", "\"clip_high\":", "\"clip_low\":", "\"colourfulness\":",
+        "\"sharpness\":null", "\"score\":", "\"score_raw\":", "\"ready\":false",
+        "\"tilt_deg\":null", "\"level_source\":\"horizon\"", "\"tilt_confidence\":",
+        "\"horizon_y\":null", "\"subject\":{\"x\":0.3,\"y\":0.4,\"w\":0.1,\"h\":0.2}",
+        "\"placement\":{\"distance\":0.05,\"point\":\"upper-right\"}", "\"balance\":{\"lr\":",
+        "\"edge_intrusions\":[\"left\",\"bottom\"]", "\"lead_room\":null", "\"motion_px_s\":",
+        "\"subject_focus\":null", "\"terms\":{\"exposure\":{\"value\":", "\"hints\":[",
+    };
+    for (size_t i = 0; i < sizeof(keys) / sizeof(keys[0]); i++)
+        assert_non_null(strstr(buf, keys[i]));
+    /* truncation reports the length needed, like snprintf */
+    char small[16];
+    assert_int_equal(coach_json(&r, NULL, small, sizeof(small)), coach_json(&r, NULL, buf, sizeof(buf)));
+    assert_int_equal((int)strlen(small), 15);
+}
+
+/* ---- allocation ---- */
+
+/* The test binary is linked with -Wl,--wrap for the allocators (see
+ * LDLIBS_test_coach in the Makefile), so every allocation made by the
+ * library passes through these counters. */
+static long a_allocs;
+void *__real_malloc(size_t n);
+void *__real_calloc(size_t k, size_t n);
+void *__real_realloc(void *p, size_t n);
+void *__real_aligned_alloc(size_t al, size_t n);
+int __real_posix_memalign(void **p, size_t al, size_t n);
+void *__wrap_malloc(size_t n);
+void *__wrap_calloc(size_t k, size_t n);
+void *__wrap_realloc(void *p, size_t n);
+void *__wrap_aligned_alloc(size_t al, size_t n);
+int __wrap_posix_memalign(void **p, size_t al, size_t n);
+void *__wrap_malloc(size_t n)
+{
+    a_allocs++;
+    return __real_malloc(n);
+}
+void *__wrap_calloc(size_t k, size_t n)
+{
+    a_allocs++;
+    return __real_calloc(k, n);
+}
+void *__wrap_realloc(void *p, size_t n)
+{
+    a_allocs++;
+    return __real_realloc(p, n);
+}
+void *__wrap_aligned_alloc(size_t al, size_t n)
+{
+    a_allocs++;
+    return __real_aligned_alloc(al, n);
+}
+int __wrap_posix_memalign(void **p, size_t al, size_t n)
+{
+    a_allocs++;
+    return __real_posix_memalign(p, al, n);
+}
+
+typedef struct { int t; } a_moving;
+static void a_scene(int x, int y, void *ctx, uint8_t c[3])
+{
+    int t = ((a_moving *)ctx)->t;
+    int horizon = 100 + t % 7;
+    int in_subject = abs(x - (60 + t)) < 12 && abs(y - 140) < 20;
+    int v = y < horizon ? 150 + y / 4 : 60 + ((x * 13 + y * 7 + t) & 31);
+    c[0] = (uint8_t)(in_subject ? 220 : v / 2);
+    c[1] = (uint8_t)(in_subject ? 40 : v / 2 + 20);
+    c[2] = (uint8_t)(in_subject ? 30 : v);
+}
+
+/* Conventions (DEVELOPERS.md): no allocation in the per-frame path.  300
+ * frames of analysis in steady state, each format, make none. */
+static void test_alloc_steady_state_zero(void **state)
+{
+    (void)state;
+    const int w = 640, h = 360;
+    coach_frame frames[4];
+    a_moving mv;
+    for (int i = 0; i < 4; i++) {
+        mv.t = i * 9;
+        frames[i] = a_xrgb(w, h, a_scene, &mv);
+    }
+    uint8_t *yuyv = calloc((size_t)w * h, 2);
+    assert_non_null(yuyv);
+    for (size_t i = 0; i < (size_t)w * h * 2; i++)
+        yuyv[i] = (uint8_t)(i % 2 ? 128 : (i * 7) % 220 + 16);
+    coach_frame fy = { .data = yuyv, .w = w, .h = h, .stride = w * 2, .format = COACH_FMT_YUYV };
+    coach_config cfg;
+    coach_config_default(&cfg);
+    cfg.max_w = w;
+    cfg.max_h = h;
+    coach_analyzer *a = coach_create(&cfg);
+    assert_non_null(a);
+    static coach_result r;
+    static char js[8192];
+    assert_int_equal(coach_analyze(a, &frames[0], 0.0, &r), 0); /* warm-up */
+    long before = a_allocs;
+    for (int i = 1; i <= 300; i++) {
+        const coach_frame *f = i % 50 == 25 ? &fy : &frames[i % 4];
+        assert_int_equal(coach_analyze(a, f, i / 30.0, &r), 0);
+        coach_json(&r, "frame", js, sizeof(js));
+    }
+    long during = a_allocs - before;
+    assert_int_equal(during, 0);
+    coach_destroy(a);
+    for (int i = 0; i < 4; i++)
+        free((void *)frames[i].data);
+    free(yuyv);
+    /* the counters do see the library's allocations (the test can fail) */
+    before = a_allocs;
+    a = coach_create(&cfg);
+    assert_true(a_allocs > before);
+    coach_destroy(a);
+}
+
 /* ==== section B ==== */
 
 int main(void)
@@ -34,6 +768,20 @@ int main(void)
     const struct CMUnitTest tests[] = {
         /* ---- section A ---- */
         cmocka_unit_test(test_format_bpp_layouts),
+        cmocka_unit_test(test_srgb_decode_iec61966),
+        cmocka_unit_test(test_grey18_code118_lstar),
+        cmocka_unit_test(test_luma_bt709_weights),
+        cmocka_unit_test(test_luma_yuv_matches_rgb),
+        cmocka_unit_test(test_exposure_whole_stops),
+        cmocka_unit_test(test_clip_fractions_known),
+        cmocka_unit_test(test_colourfulness_hasler_formula),
+        cmocka_unit_test(test_colourfulness_word_categories),
+        cmocka_unit_test(test_sharpness_laplacian_reflect101),
+        cmocka_unit_test(test_score_smoothing_step_response),
+        cmocka_unit_test(test_ready_hysteresis_no_flicker),
+        cmocka_unit_test(test_score_hints_worst_first),
+        cmocka_unit_test(test_json_structure_no_nan),
+        cmocka_unit_test(test_alloc_steady_state_zero),
         /* ---- section B ---- */
     };
     return cmocka_run_group_tests(tests, NULL, NULL);
