@@ -9,7 +9,988 @@
 
 #include "capture/capture.h"
 
+/* section A */
+#include <errno.h>
+#include <math.h>
+#include <pthread.h>
+#include <stdio.h>
+#include <stdlib.h>
+#include <string.h>
+#include <time.h>
+#include <unistd.h>
+
+#include <poll.h>
+#include <sys/stat.h>
+
+#include <SDL.h>
+#include <SDL_image.h>
+
+#include "capture/capture_internal.h"
+
+#ifndef M_PI
+#define M_PI 3.14159265358979323846
+#endif
+
 /* ==== section A ==== */
+
+/* ---- mailbox ---- */
+
+static cap_frame meta_seq(uint64_t seq)
+{
+    cap_frame f;
+    memset(&f, 0, sizeof f);
+    f.seq = seq;
+    return f;
+}
+
+static void test_mailbox_drop_counting(void **state)
+{
+    (void)state;
+    cap_mailbox *m = cap_mailbox_create(64);
+    assert_non_null(m);
+    cap_frame out;
+    assert_int_equal(cap_mailbox_take(m, &out), -EAGAIN);
+    for (uint64_t i = 0; i < 5; i++) {
+        uint8_t *b = cap_mailbox_begin(m, 64);
+        assert_non_null(b);
+        memset(b, (int)i, 64);
+        cap_frame f = meta_seq(i);
+        cap_mailbox_publish(m, &f);
+    }
+    cap_stats st;
+    cap_mailbox_stats(m, &st);
+    /* five published, none taken: four were replaced unread */
+    assert_int_equal(st.published, 5);
+    assert_int_equal(st.dropped, 4);
+    assert_int_equal(st.taken, 0);
+    assert_int_equal(cap_mailbox_take(m, &out), 0);
+    assert_int_equal(out.seq, 4);
+    assert_int_equal(out.view.data[0], 4);
+    cap_mailbox_release(m);
+    assert_int_equal(cap_mailbox_take(m, &out), -EAGAIN);
+    cap_mailbox_stats(m, &st);
+    assert_int_equal(st.taken, 1);
+    assert_null(cap_mailbox_begin(m, 65)); /* larger than the buffers */
+    cap_mailbox_destroy(m);
+    cap_mailbox_destroy(NULL);
+}
+
+static void test_mailbox_newest_wins(void **state)
+{
+    (void)state;
+    cap_mailbox *m = cap_mailbox_create(16);
+    cap_frame out;
+    for (uint64_t round = 0; round < 10; round++) {
+        for (uint64_t k = 0; k <= round % 3; k++) {
+            uint8_t *b = cap_mailbox_begin(m, 16);
+            b[0] = (uint8_t)(round * 10 + k);
+            cap_frame f = meta_seq(round * 10 + k);
+            cap_mailbox_publish(m, &f);
+        }
+        assert_int_equal(cap_mailbox_take(m, &out), 0);
+        assert_int_equal(out.seq, round * 10 + round % 3);
+        assert_int_equal(out.view.data[0], (uint8_t)(round * 10 + round % 3));
+        cap_mailbox_release(m);
+    }
+    cap_mailbox_destroy(m);
+}
+
+static void test_mailbox_reader_buffer_kept(void **state)
+{
+    (void)state;
+    cap_mailbox *m = cap_mailbox_create(32);
+    uint8_t *b = cap_mailbox_begin(m, 32);
+    memset(b, 0xAB, 32);
+    cap_frame f = meta_seq(0);
+    cap_mailbox_publish(m, &f);
+    cap_frame held;
+    assert_int_equal(cap_mailbox_take(m, &held), 0);
+    const uint8_t *pending = NULL;
+    for (uint64_t i = 1; i < 50; i++) {
+        uint8_t *w = cap_mailbox_begin(m, 32);
+        assert_ptr_not_equal(w, held.view.data);
+        assert_ptr_not_equal(w, pending); /* nor the unread frame it may replace */
+        memset(w, (int)i, 32);
+        f = meta_seq(i);
+        cap_mailbox_publish(m, &f);
+        pending = w;
+    }
+    for (int i = 0; i < 32; i++)
+        assert_int_equal(held.view.data[i], 0xAB);
+    cap_mailbox_release(m);
+    cap_frame out;
+    assert_int_equal(cap_mailbox_take(m, &out), 0);
+    assert_int_equal(out.seq, 49);
+    for (int i = 0; i < 32; i++)
+        assert_int_equal(out.view.data[i], 49);
+    cap_mailbox_release(m);
+    cap_mailbox_destroy(m);
+}
+
+#define MB_FRAMES 20000
+#define MB_BYTES 4096
+
+static void *mailbox_producer(void *arg)
+{
+    cap_mailbox *m = arg;
+    for (uint64_t i = 1; i <= MB_FRAMES; i++) {
+        uint8_t *b = cap_mailbox_begin(m, MB_BYTES);
+        if (!b)
+            return NULL;
+        memset(b, (int)(i & 0xFF), MB_BYTES);
+        cap_frame f = meta_seq(i);
+        cap_mailbox_publish(m, &f);
+    }
+    return NULL;
+}
+
+static void test_mailbox_producer_thread(void **state)
+{
+    (void)state;
+    cap_mailbox *m = cap_mailbox_create(MB_BYTES);
+    pthread_t th;
+    assert_int_equal(pthread_create(&th, NULL, mailbox_producer, m), 0);
+    uint64_t last = 0, got = 0;
+    int torn = 0;
+    for (;;) {
+        cap_frame f;
+        if (cap_mailbox_take(m, &f) == 0) {
+            got++;
+            assert_true(f.seq > last); /* frames only move forward */
+            last = f.seq;
+            /* while we hold it, the producer keeps writing elsewhere */
+            for (int pass = 0; pass < 3; pass++)
+                for (int i = 0; i < MB_BYTES; i += 97)
+                    torn |= f.view.data[i] != (uint8_t)(f.seq & 0xFF);
+            cap_mailbox_release(m);
+            if (f.seq == MB_FRAMES)
+                break;
+        } else {
+            sched_yield();
+        }
+    }
+    pthread_join(th, NULL);
+    assert_false(torn);
+    cap_stats st;
+    cap_mailbox_stats(m, &st);
+    assert_int_equal(st.published, MB_FRAMES);
+    assert_int_equal(st.taken, got);
+    /* every published frame was either taken or replaced unread */
+    assert_int_equal(st.taken + st.dropped, st.published);
+    cap_mailbox_destroy(m);
+}
+
+/* ---- capture thread ---- */
+
+typedef struct ev_log {
+    int frames, lost, back, end;
+    int order[8], n;
+} ev_log;
+
+static void log_event(void *ctx, cap_event ev)
+{
+    ev_log *l = ctx;
+    if (ev == CAP_EV_FRAME)
+        __atomic_add_fetch(&l->frames, 1, __ATOMIC_SEQ_CST);
+    else {
+        int i = __atomic_fetch_add(&l->n, 1, __ATOMIC_SEQ_CST);
+        if (i < 8)
+            __atomic_store_n(&l->order[i], (int)ev, __ATOMIC_SEQ_CST);
+        if (ev == CAP_EV_LOST)
+            __atomic_add_fetch(&l->lost, 1, __ATOMIC_SEQ_CST);
+        if (ev == CAP_EV_BACK)
+            __atomic_add_fetch(&l->back, 1, __ATOMIC_SEQ_CST);
+        if (ev == CAP_EV_END)
+            __atomic_add_fetch(&l->end, 1, __ATOMIC_SEQ_CST);
+    }
+}
+
+static double mono_s(void)
+{
+    struct timespec ts;
+    clock_gettime(CLOCK_MONOTONIC, &ts);
+    return (double)ts.tv_sec + (double)ts.tv_nsec * 1e-9;
+}
+
+/* Waits up to limit seconds for *v >= want. */
+static int wait_for(int *v, int want, double limit)
+{
+    double t0 = mono_s();
+    while (__atomic_load_n(v, __ATOMIC_SEQ_CST) < want) {
+        if (mono_s() - t0 > limit)
+            return 0;
+        usleep(2000);
+    }
+    return 1;
+}
+
+/* A scripted device: poll_fd is a pipe; produce() and recover() follow the
+ * script so the thread's reactions can be checked. */
+typedef struct fake_dev {
+    cap_source base;
+    int rd, wr;
+    int produce_rc;       /* what produce() returns the first time */
+    int recover_mode;     /* 0: wait for stop (-ECANCELED); 1: come back */
+    int recovered_rc;
+    int calls;
+    const char *note;
+} fake_dev;
+
+static int fake_poll_fd(cap_source *s)
+{
+    return ((fake_dev *)s)->rd;
+}
+
+static int fake_produce(cap_source *s, cap_mailbox *mb, cap_frame *meta)
+{
+    fake_dev *f = (fake_dev *)s;
+    char c;
+    if (read(f->rd, &c, 1) != 1)
+        return -EAGAIN;
+    if (f->calls++ == 0 && f->produce_rc) {
+        if (f->note)
+            snprintf(s->note, sizeof s->note, "%s", f->note);
+        return f->produce_rc;
+    }
+    uint8_t *b = cap_mailbox_begin(mb, 16);
+    memset(b, 7, 16);
+    meta->view.data = b;
+    meta->view.w = 2;
+    meta->view.h = 2;
+    meta->view.stride = 8;
+    meta->view.format = COACH_FMT_XRGB8888;
+    meta->seq = (uint64_t)f->calls;
+    return 0;
+}
+
+static int fake_recover(cap_source *s, int stop_fd)
+{
+    fake_dev *f = (fake_dev *)s;
+    if (f->recover_mode == 1) {
+        ssize_t w = write(f->wr, "x", 1); /* the device streams again */
+        (void)w;
+        return 0;
+    }
+    struct pollfd p = {.fd = stop_fd, .events = POLLIN};
+    int n = poll(&p, 1, 20000);
+    f->recovered_rc = n > 0 ? -ECANCELED : -ETIMEDOUT;
+    return f->recovered_rc;
+}
+
+static void fake_destroy(cap_source *s)
+{
+    fake_dev *f = (fake_dev *)s;
+    close(f->rd);
+    close(f->wr);
+    free(f);
+}
+
+static const cap_source_ops fake_ops = {fake_poll_fd, fake_produce, fake_recover, fake_destroy};
+
+static fake_dev *fake_new(int produce_rc, int recover_mode)
+{
+    fake_dev *f = calloc(1, sizeof *f);
+    int p[2];
+    assert_int_equal(pipe(p), 0);
+    f->rd = p[0];
+    f->wr = p[1];
+    f->base.ops = &fake_ops;
+    snprintf(f->base.name, sizeof f->base.name, "fake camera");
+    f->base.fps = 30;
+    f->base.live = 1;
+    f->base.max_bytes = 16;
+    f->produce_rc = produce_rc;
+    f->recover_mode = recover_mode;
+    return f;
+}
+
+static void test_thread_stop_paced_demo(void **state)
+{
+    (void)state;
+    char err[256];
+    cap_source_opts o = {.w = 640, .h = 480, .fps = 30};
+    cap_source *s = cap_source_open("demo", &o, err, sizeof err);
+    assert_non_null(s);
+    cap_mailbox *m = cap_mailbox_create(cap_source_max_bytes(s));
+    ev_log l = {0};
+    cap_thread *t = cap_thread_start(s, m, log_event, &l);
+    assert_non_null(t);
+    assert_true(wait_for(&l.frames, 3, 10.0));
+    cap_frame f;
+    assert_int_equal(cap_mailbox_take(m, &f), 0);
+    assert_true(f.truth.valid);
+    assert_int_equal(f.view.w, 640);
+    assert_int_equal(f.view.format, COACH_FMT_XRGB8888);
+    cap_mailbox_release(m);
+    double t0 = mono_s();
+    cap_thread_destroy(t);
+    /* liveness bound, not a speed target: a stop must not wait for more
+     * than the frame in progress */
+    assert_true(mono_s() - t0 < 2.0);
+    cap_thread_destroy(NULL);
+    cap_mailbox_destroy(m);
+}
+
+static void test_thread_stop_silent_device(void **state)
+{
+    (void)state;
+    fake_dev *f = fake_new(0, 0);
+    cap_mailbox *m = cap_mailbox_create(16);
+    ev_log l = {0};
+    cap_thread *t = cap_thread_start(&f->base, m, log_event, &l);
+    assert_non_null(t);
+    usleep(100000); /* the thread now blocks in poll on a device that sends nothing */
+    double t0 = mono_s();
+    cap_thread_destroy(t);
+    assert_true(mono_s() - t0 < 2.0);
+    assert_int_equal(l.frames, 0);
+    cap_mailbox_destroy(m);
+}
+
+static void test_thread_lost_then_back(void **state)
+{
+    (void)state;
+    fake_dev *f = fake_new(-ENODEV, 1);
+    cap_mailbox *m = cap_mailbox_create(16);
+    ev_log l = {0};
+    cap_thread *t = cap_thread_start(&f->base, m, log_event, &l);
+    assert_non_null(t);
+    ssize_t w = write(f->wr, "x", 1);
+    assert_int_equal(w, 1);
+    assert_true(wait_for(&l.frames, 1, 5.0));
+    assert_int_equal(l.lost, 1);
+    assert_int_equal(l.back, 1);
+    assert_int_equal(l.order[0], CAP_EV_LOST);
+    assert_int_equal(l.order[1], CAP_EV_BACK);
+    char st[256];
+    cap_thread_status(t, st, sizeof st);
+    assert_non_null(strstr(st, "fake camera"));
+    assert_non_null(strstr(st, "back"));
+    cap_thread_destroy(t);
+    cap_mailbox_destroy(m);
+}
+
+static void test_thread_stop_while_recovering(void **state)
+{
+    (void)state;
+    fake_dev *f = fake_new(-EIO, 0);
+    cap_mailbox *m = cap_mailbox_create(16);
+    ev_log l = {0};
+    cap_thread *t = cap_thread_start(&f->base, m, log_event, &l);
+    ssize_t w = write(f->wr, "x", 1);
+    assert_int_equal(w, 1);
+    assert_true(wait_for(&l.lost, 1, 5.0));
+    char st[256];
+    cap_thread_status(t, st, sizeof st);
+    assert_non_null(strstr(st, "lost"));
+    usleep(50000); /* now inside recover(), waiting for the device */
+    double t0 = mono_s();
+    cap_thread_destroy(t);
+    assert_true(mono_s() - t0 < 2.0);
+    assert_int_equal(l.back, 0);
+    assert_int_equal(l.end, 0); /* a stop is not a failure */
+    cap_mailbox_destroy(m);
+}
+
+static void test_thread_fatal_error_ends(void **state)
+{
+    (void)state;
+    for (int with_note = 0; with_note < 2; with_note++) {
+        fake_dev *f = fake_new(-EPROTO, 1);
+        f->note = with_note ? "fake camera: sends frames of the wrong size" : NULL;
+        cap_mailbox *m = cap_mailbox_create(16);
+        ev_log l = {0};
+        cap_thread *t = cap_thread_start(&f->base, m, log_event, &l);
+        ssize_t w = write(f->wr, "x", 1);
+        assert_int_equal(w, 1);
+        assert_true(wait_for(&l.end, 1, 5.0));
+        char st[256];
+        cap_thread_status(t, st, sizeof st);
+        if (with_note)
+            assert_string_equal(st, "fake camera: sends frames of the wrong size");
+        else
+            assert_non_null(strstr(st, strerror(EPROTO)));
+        assert_int_equal(l.lost, 0);
+        cap_thread_destroy(t);
+        cap_mailbox_destroy(m);
+    }
+}
+
+/* ---- demo scenes ---- */
+
+/* sRGB decoding, IEC 61966-2-1:1999 section 5.2 (written out here rather
+ * than shared with the code under test). */
+static double ref_srgb_decode(int code)
+{
+    double c = code / 255.0;
+    return c <= 0.04045 ? c / 12.92 : pow((c + 0.055) / 1.055, 2.4);
+}
+
+/* Relative luminance of an XRGB8888 pixel, ITU-R BT.709-6 item 3.2 weights. */
+static double ref_lum(const uint8_t *p)
+{
+    return 0.2126 * ref_srgb_decode(p[2]) + 0.7152 * ref_srgb_decode(p[1]) +
+           0.0722 * ref_srgb_decode(p[0]);
+}
+
+static double mean_lum(const uint8_t *img, int w, int h)
+{
+    double sum = 0;
+    for (int y = 0; y < h; y++)
+        for (int x = 0; x < w; x++)
+            sum += ref_lum(img + ((size_t)y * (size_t)w + (size_t)x) * 4);
+    return sum / ((double)w * h);
+}
+
+static cap_source *open_demo(const char *spec, int w, int h)
+{
+    char err[256];
+    cap_source_opts o = {.w = w, .h = h, .seed = 7};
+    cap_source *s = cap_source_open(spec, &o, err, sizeof err);
+    if (!s)
+        print_error("%s\n", err);
+    assert_non_null(s);
+    return s;
+}
+
+static void test_demo_deterministic(void **state)
+{
+    (void)state;
+    const char *scenes[] = {"demo:harbour", "demo:tabletop"};
+    for (int k = 0; k < 2; k++) {
+        cap_source *a = open_demo(scenes[k], 800, 600), *b = open_demo(scenes[k], 800, 600);
+        size_t n = 800u * 600u * 4u;
+        uint8_t *x = malloc(n), *y = malloc(n), *z = malloc(n);
+        cap_truth ta, tb, tc;
+        /* render b at other times first: no state may leak between frames */
+        assert_int_equal(cap_demo_render(b, 11.0, z, 800 * 4, &tc), 0);
+        assert_int_equal(cap_demo_render(a, 3.25, x, 800 * 4, &ta), 0);
+        assert_int_equal(cap_demo_render(b, 3.25, y, 800 * 4, &tb), 0);
+        assert_memory_equal(x, y, n);
+        assert_memory_equal(&ta, &tb, sizeof ta);
+        assert_int_equal(cap_demo_render(a, 4.25, z, 800 * 4, &tc), 0);
+        assert_true(memcmp(x, z, n) != 0);
+        cap_source_destroy(a);
+        cap_source_destroy(b);
+        free(x);
+        free(y);
+        free(z);
+    }
+    /* a different seed gives a different frame */
+    char err[256];
+    cap_source_opts o1 = {.w = 640, .h = 480, .seed = 1}, o2 = {.w = 640, .h = 480, .seed = 2};
+    cap_source *a = cap_source_open("demo", &o1, err, sizeof err);
+    cap_source *b = cap_source_open("demo", &o2, err, sizeof err);
+    uint8_t *x = malloc(640 * 480 * 4), *y = malloc(640 * 480 * 4);
+    cap_demo_render(a, 1.0, x, 640 * 4, NULL);
+    cap_demo_render(b, 1.0, y, 640 * 4, NULL);
+    assert_true(memcmp(x, y, 640 * 480 * 4) != 0);
+    cap_source_destroy(a);
+    cap_source_destroy(b);
+    free(x);
+    free(y);
+}
+
+static void test_demo_sizes(void **state)
+{
+    (void)state;
+    static const int sizes[][2] = {{640, 480}, {1280, 720}, {1001, 777}, {1920, 1080}, {3840, 2160}};
+    const char *scenes[] = {"demo", "demo:tabletop"};
+    for (size_t i = 0; i < sizeof sizes / sizeof sizes[0]; i++) {
+        for (int k = 0; k < 2; k++) {
+            int w = sizes[i][0], h = sizes[i][1];
+            cap_source *s = open_demo(scenes[k], w, h);
+            assert_true(cap_source_max_bytes(s) >= (size_t)w * (size_t)h * 4);
+            int dw, dh;
+            assert_int_equal(cap_demo_size(s, &dw, &dh), 0);
+            assert_int_equal(dw, w);
+            assert_int_equal(dh, h);
+            /* a stride with padding: the row ends must stay untouched */
+            int stride = w * 4 + 64;
+            uint8_t *buf = malloc((size_t)stride * (size_t)h);
+            memset(buf, 0x5A, (size_t)stride * (size_t)h);
+            cap_truth tr;
+            assert_int_equal(cap_demo_render(s, 2.0, buf, stride, &tr), 0);
+            assert_int_equal(buf[(size_t)stride * 3 + (size_t)w * 4 + 10], 0x5A);
+            assert_true(tr.valid);
+            assert_true(tr.horizon_y > 0 && tr.horizon_y < 1);
+            assert_true(fabs(tr.horizon_deg) < 6);
+            assert_true(tr.subject_x > 0 && tr.subject_x < 1 && tr.subject_w > 0.02);
+            assert_true(tr.blur_sigma >= 0);
+            /* not a flat frame */
+            double lo = 1, hi = 0;
+            for (int y = 0; y < h; y += 7)
+                for (int x = 0; x < w; x += 13) {
+                    double v = ref_lum(buf + (size_t)y * (size_t)stride + (size_t)x * 4);
+                    lo = v < lo ? v : lo;
+                    hi = v > hi ? v : hi;
+                }
+            assert_true(hi - lo > 0.1);
+            free(buf);
+            cap_source_destroy(s);
+        }
+    }
+    char err[256];
+    cap_source_opts big = {.w = 4096, .h = 2160}, tiny = {.w = 320, .h = 240};
+    assert_null(cap_source_open("demo", &big, err, sizeof err));
+    assert_non_null(strstr(err, "4096x2160"));
+    assert_null(cap_source_open("demo:tabletop", &tiny, err, sizeof err));
+    assert_non_null(strstr(err, "320x240"));
+}
+
+static void test_demo_exposure_one_stop(void **state)
+{
+    (void)state;
+    const char *scenes[] = {"demo", "demo:tabletop"};
+    for (int k = 0; k < 2; k++) {
+        int w = 960, h = 540;
+        cap_source *s = open_demo(scenes[k], w, h);
+        uint8_t *a = malloc((size_t)w * h * 4), *b = malloc((size_t)w * h * 4);
+        cap_truth ta, tb;
+        cap_demo_pin pin = {.exposure_ev = -0.5, .blur_sigma = NAN, .horizon_deg = NAN};
+        assert_int_equal(cap_demo_set_pin(s, &pin), 0);
+        cap_demo_render(s, 5.0, a, w * 4, &ta);
+        pin.exposure_ev = 0.5;
+        cap_demo_set_pin(s, &pin);
+        cap_demo_render(s, 5.0, b, w * 4, &tb);
+        assert_float_equal(ta.exposure_ev, -0.5, 1e-12);
+        assert_float_equal(tb.exposure_ev, 0.5, 1e-12);
+        /* one stop = twice the light (APEX, ASA PH2.5-1960, and ISO 2720:
+         * exposure values step in powers of two), measured as linear
+         * relative luminance */
+        double ratio = mean_lum(b, w, h) / mean_lum(a, w, h);
+        print_message("%s: mean luminance ratio for +1 EV = %.4f\n", scenes[k], ratio);
+        assert_float_equal(ratio, 2.0, 0.04);
+        free(a);
+        free(b);
+        cap_source_destroy(s);
+    }
+}
+
+/* Continuous y (pixel centres at y + 0.5) where a column of linear luma
+ * falls from the sky to the sea: the largest drop, located at the midpoint
+ * of the levels two pixels either side.  Rows in [skip0, skip1) are ignored
+ * (the boat). */
+static double find_drop(const uint8_t *img, int w, int h, int x, int skip0, int skip1)
+{
+    (void)w;
+    double best = 0;
+    int yb = -1;
+    for (int y = 2; y < h - 3; y++) {
+        if (y + 1 >= skip0 && y <= skip1)
+            continue;
+        double d = ref_lum(img + ((size_t)y * (size_t)w + (size_t)x) * 4) -
+                   ref_lum(img + ((size_t)(y + 1) * (size_t)w + (size_t)x) * 4);
+        if (d > best) {
+            best = d;
+            yb = y;
+        }
+    }
+    if (yb < 0)
+        return NAN;
+    double above = ref_lum(img + ((size_t)(yb - 2) * (size_t)w + (size_t)x) * 4);
+    double below = ref_lum(img + ((size_t)(yb + 3) * (size_t)w + (size_t)x) * 4);
+    double mid = (above + below) / 2;
+    for (int y = yb - 2; y < yb + 3; y++) {
+        double l0 = ref_lum(img + ((size_t)y * (size_t)w + (size_t)x) * 4);
+        double l1 = ref_lum(img + ((size_t)(y + 1) * (size_t)w + (size_t)x) * 4);
+        if (l0 >= mid && l1 < mid)
+            return y + 0.5 + (l0 - mid) / (l0 - l1);
+    }
+    return NAN;
+}
+
+/* Where the horizon line of the truth passes column x (continuous y). */
+static double truth_y_at(const cap_truth *t, int w, int h, int x)
+{
+    return t->horizon_y * h - (x + 0.5 - w / 2.0) * tan(t->horizon_deg * M_PI / 180.0);
+}
+
+static void check_horizon(const uint8_t *img, int w, int h, const cap_truth *t)
+{
+    int skip0 = (int)((t->subject_y - t->subject_h / 2) * h) - 8;
+    int skip1 = (int)((t->subject_y + t->subject_h / 2) * h) + 8;
+    int xs[3] = {w / 4, w / 2, 3 * w / 4};
+    double ys[3];
+    for (int i = 0; i < 3; i++) {
+        int in_boat = fabs((xs[i] + 0.5) / w - t->subject_x) < t->subject_w / 2 + 0.02;
+        ys[i] = find_drop(img, w, h, xs[i], in_boat ? skip0 : -1, in_boat ? skip1 : -1);
+        double want = truth_y_at(t, w, h, xs[i]);
+        print_message("horizon at x=%d: found %.2f, truth %.2f (tilt %.2f deg)\n", xs[i], ys[i],
+                      want, t->horizon_deg);
+        /* the brief allows ~2 px */
+        assert_true(fabs(ys[i] - want) < 2.0);
+    }
+    /* tilt from the two outer columns, + when the right end is higher */
+    double tilt = atan2(ys[0] - ys[2], (double)(xs[2] - xs[0])) * 180.0 / M_PI;
+    assert_float_equal(tilt, t->horizon_deg, 0.15);
+}
+
+static void test_demo_horizon_truth(void **state)
+{
+    (void)state;
+    int w = 1280, h = 720;
+    cap_source *s = open_demo("demo", w, h);
+    uint8_t *img = malloc((size_t)w * h * 4);
+    cap_truth t;
+    /* the scene's own drift at a few times, sharp or soft */
+    double times[] = {0.0, 2.6, 7.9, 15.3, 33.3};
+    for (size_t i = 0; i < sizeof times / sizeof times[0]; i++) {
+        cap_demo_render(s, times[i], img, w * 4, &t);
+        check_horizon(img, w, h, &t);
+    }
+    /* pinned tilts either way */
+    double tilts[] = {-3.5, 0.0, 2.0};
+    for (size_t i = 0; i < 3; i++) {
+        cap_demo_pin pin = {.exposure_ev = NAN, .blur_sigma = 0, .horizon_deg = tilts[i]};
+        cap_demo_set_pin(s, &pin);
+        cap_demo_render(s, 1.0, img, w * 4, &t);
+        assert_float_equal(t.horizon_deg, tilts[i], 1e-12);
+        check_horizon(img, w, h, &t);
+    }
+    free(img);
+    cap_source_destroy(s);
+}
+
+static void test_demo_blur_edge_width(void **state)
+{
+    (void)state;
+    int w = 1920, h = 1080;
+    cap_source *s = open_demo("demo", w, h);
+    uint8_t *img = malloc((size_t)w * h * 4);
+    double sigmas[] = {2.0, 4.0};
+    for (int k = 0; k < 2; k++) {
+        cap_demo_pin pin = {.exposure_ev = 0, .blur_sigma = sigmas[k], .horizon_deg = 0};
+        cap_demo_set_pin(s, &pin);
+        cap_truth t;
+        cap_demo_render(s, 3.0, img, w * 4, &t);
+        assert_float_equal(t.blur_sigma, sigmas[k], 1e-12);
+        /* average the columns away from the boat to quiet the waves */
+        double se = sqrt(sigmas[k] * sigmas[k] + 1.0 / 12); /* + pixel-area antialiasing */
+        int R = (int)ceil(4 * se) + 2;
+        double yh = t.horizon_y * h;
+        int y0 = (int)floor(yh) - R, n = 2 * R + 1;
+        double prof[64] = {0};
+        int cols = 0;
+        for (int x = 0; x < w; x += 3) {
+            if (fabs((x + 0.5) / w - t.subject_x) < t.subject_w / 2 + 0.03)
+                continue;
+            for (int i = 0; i < n; i++)
+                prof[i] += ref_lum(img + ((size_t)(y0 + i) * (size_t)w + (size_t)x) * 4);
+            cols++;
+        }
+        for (int i = 0; i < n; i++)
+            prof[i] /= cols;
+        double top = prof[0], bot = prof[n - 1];
+        double y10 = NAN, y90 = NAN;
+        for (int i = 0; i + 1 < n; i++) {
+            double l90 = top - 0.1 * (top - bot), l10 = top - 0.9 * (top - bot);
+            if (prof[i] >= l90 && prof[i + 1] < l90)
+                y10 = i + (prof[i] - l90) / (prof[i] - prof[i + 1]);
+            if (prof[i] >= l10 && prof[i + 1] < l10)
+                y90 = i + (prof[i] - l10) / (prof[i] - prof[i + 1]);
+        }
+        /* A Gaussian-blurred step rises from 10 % to 90 % over
+         * 2 * 1.28155 sigma (the 0.9 quantile of the standard normal
+         * distribution, any statistics table). */
+        double width = y90 - y10, want = 2 * 1.28155 * se;
+        print_message("sigma %.1f: 10-90 %% edge width %.2f px, Gaussian %.2f px\n", sigmas[k],
+                      width, want);
+        assert_float_equal(width, want, 0.12 * want);
+    }
+    free(img);
+    cap_source_destroy(s);
+}
+
+static void test_demo_tabletop_truth(void **state)
+{
+    (void)state;
+    int w = 1280, h = 720;
+    cap_source *s = open_demo("demo:tabletop", w, h);
+    uint8_t *img = malloc((size_t)w * h * 4);
+    double times[] = {0.0, 9.0, 21.0};
+    for (int k = 0; k < 3; k++) {
+        cap_truth t;
+        cap_demo_render(s, times[k], img, w * 4, &t);
+        /* the table's front edge is the level line */
+        int xs[2] = {w / 8, 7 * w / 8};
+        double ys[2];
+        for (int i = 0; i < 2; i++) {
+            ys[i] = find_drop(img, w, h, xs[i], -1, -1);
+            print_message("table edge at x=%d: found %.2f, truth %.2f\n", xs[i], ys[i],
+                          truth_y_at(&t, w, h, xs[i]));
+            assert_true(fabs(ys[i] - truth_y_at(&t, w, h, xs[i])) < 2.0);
+        }
+        double tilt = atan2(ys[0] - ys[1], (double)(xs[1] - xs[0])) * 180.0 / M_PI;
+        assert_float_equal(tilt, t.horizon_deg, 0.2);
+        /* the jug's box: outermost strong colour edges between the box rows */
+        int bx0 = w, bx1 = -1, by0 = h, by1 = -1;
+        for (int y = 1; y < h - 1; y++)
+            for (int x = 1; x < w - 1; x++) {
+                const uint8_t *p = img + ((size_t)y * (size_t)w + (size_t)x) * 4;
+                double gx = fabs(ref_lum(p + 4) - ref_lum(p - 4));
+                double gy = fabs(ref_lum(p + (size_t)w * 4) - ref_lum(p - (size_t)w * 4));
+                double ty = truth_y_at(&t, w, h, x);
+                if (fabs(y + 0.5 - ty) < 4)
+                    continue; /* the table edge itself */
+                if (gx > 0.03 || gy > 0.03) {
+                    bx0 = x < bx0 ? x : bx0;
+                    bx1 = x > bx1 ? x : bx1;
+                    by0 = y < by0 ? y : by0;
+                    by1 = y > by1 ? y : by1;
+                }
+            }
+        double tx0 = (t.subject_x - t.subject_w / 2) * w, tx1 = (t.subject_x + t.subject_w / 2) * w;
+        double ty0 = (t.subject_y - t.subject_h / 2) * h, ty1 = (t.subject_y + t.subject_h / 2) * h;
+        print_message("jug box found x %d..%d y %d..%d, truth x %.1f..%.1f y %.1f..%.1f\n", bx0,
+                      bx1 + 1, by0, by1 + 1, tx0, tx1, ty0, ty1);
+        assert_true(fabs(bx0 - tx0) < 3 && fabs(bx1 + 1 - tx1) < 3);
+        assert_true(fabs(by0 - ty0) < 3 && fabs(by1 + 1 - ty1) < 3);
+    }
+    free(img);
+    cap_source_destroy(s);
+}
+
+static void test_source_dispatch(void **state)
+{
+    (void)state;
+    char err[256];
+    cap_source_opts o = {.w = 640, .h = 480};
+    cap_source *s = cap_source_open("demo", &o, err, sizeof err);
+    assert_non_null(strstr(cap_source_name(s), "harbour"));
+    assert_false(cap_source_is_live(s));
+    assert_float_equal(cap_source_fps(s), 30.0, 1e-9);
+    cap_source_destroy(s);
+    s = cap_source_open("demo:tabletop", &o, err, sizeof err);
+    assert_non_null(strstr(cap_source_name(s), "tabletop"));
+    cap_source_destroy(s);
+    cap_source_destroy(NULL);
+    assert_null(cap_source_open("demo:lighthouse", &o, err, sizeof err));
+    assert_non_null(strstr(err, "demo:lighthouse"));
+    assert_null(strchr(err, '\n'));
+    /* neither a demo nor a file: the camera code answers, naming it */
+    err[0] = '\0';
+    assert_null(cap_source_open("/nonexistent/vfcoach-cam", &o, err, sizeof err));
+    assert_non_null(strstr(err, "/nonexistent/vfcoach-cam"));
+    assert_null(cap_source_open("", &o, err, sizeof err));
+    assert_true(err[0] != '\0');
+    uint8_t px[16];
+    assert_int_equal(cap_demo_render(NULL, 0, px, 16, NULL), -EINVAL);
+}
+
+/* ---- stills ---- */
+
+static char g_tmpdir[256];
+
+static const char *tmp_path(const char *name)
+{
+    static char p[512];
+    snprintf(p, sizeof p, "%s/%s", g_tmpdir, name);
+    return p;
+}
+
+static int tmpdir_setup(void **state)
+{
+    (void)state;
+    snprintf(g_tmpdir, sizeof g_tmpdir, "/tmp/vfcoach-test-XXXXXX");
+    return mkdtemp(g_tmpdir) ? 0 : -1;
+}
+
+static int tmpdir_teardown(void **state)
+{
+    (void)state;
+    char cmd[300];
+    snprintf(cmd, sizeof cmd, "rm -rf '%s'", g_tmpdir);
+    return system(cmd) == 0 ? 0 : -1;
+}
+
+/* Writes a w x h PNG through SDL2_image; pixel (x, y) = f(x, y) as 0xRRGGBB. */
+static void write_png(const char *path, int w, int h, uint32_t (*f)(int, int))
+{
+    SDL_Surface *s = SDL_CreateRGBSurfaceWithFormat(0, w, h, 32, SDL_PIXELFORMAT_XRGB8888);
+    assert_non_null(s);
+    for (int y = 0; y < h; y++)
+        for (int x = 0; x < w; x++)
+            ((uint32_t *)((uint8_t *)s->pixels + (size_t)y * (size_t)s->pitch))[x] = f(x, y);
+    assert_int_equal(IMG_SavePNG(s, path), 0);
+    SDL_FreeSurface(s);
+}
+
+static uint32_t pat_ramp(int x, int y)
+{
+    return (uint32_t)(x * 4 % 256) << 16 | (uint32_t)(y * 5 % 256) << 8 | (uint32_t)((x + y) % 256);
+}
+static uint32_t pat_red(int x, int y) { (void)x, (void)y; return 0xD02010; }
+static uint32_t pat_green(int x, int y) { (void)x, (void)y; return 0x10C040; }
+static uint32_t pat_blue(int x, int y) { (void)x, (void)y; return 0x1030E0; }
+
+static void write_bytes(const char *path, const void *b, size_t n)
+{
+    FILE *f = fopen(path, "wb");
+    assert_non_null(f);
+    assert_int_equal(fwrite(b, 1, n, f), n);
+    fclose(f);
+}
+
+static void test_image_load_png(void **state)
+{
+    (void)state;
+    write_png(tmp_path("ramp.png"), 61, 47, pat_ramp);
+    coach_frame f;
+    char err[256];
+    assert_int_equal(cap_image_load(tmp_path("ramp.png"), &f, err, sizeof err), 0);
+    assert_int_equal(f.w, 61);
+    assert_int_equal(f.h, 47);
+    assert_int_equal(f.format, COACH_FMT_XRGB8888);
+    /* PNG is lossless (W3C PNG specification, section 1): exact pixels back */
+    for (int y = 0; y < 47; y++)
+        for (int x = 0; x < 61; x++) {
+            const uint8_t *p = f.data + (size_t)y * (size_t)f.stride + (size_t)x * 4;
+            uint32_t v = (uint32_t)p[2] << 16 | (uint32_t)p[1] << 8 | p[0];
+            assert_int_equal(v, pat_ramp(x, y));
+        }
+    cap_image_free(&f);
+    assert_null(f.data);
+    cap_image_free(NULL);
+}
+
+static void test_image_load_jpeg(void **state)
+{
+    (void)state;
+    SDL_Surface *s = SDL_CreateRGBSurfaceWithFormat(0, 64, 32, 32, SDL_PIXELFORMAT_XRGB8888);
+    for (int y = 0; y < 32; y++)
+        for (int x = 0; x < 64; x++)
+            ((uint32_t *)((uint8_t *)s->pixels + (size_t)y * (size_t)s->pitch))[x] =
+                x < 32 ? 0x808080u : 0xC04020u;
+    assert_int_equal(IMG_SaveJPG(s, tmp_path("two.jpg"), 95), 0);
+    SDL_FreeSurface(s);
+    coach_frame f;
+    char err[256];
+    assert_int_equal(cap_image_load(tmp_path("two.jpg"), &f, err, sizeof err), 0);
+    assert_int_equal(f.w, 64);
+    assert_int_equal(f.h, 32);
+    /* lossy, so only near the block centres and within a few codes */
+    const uint8_t *g = f.data + 16 * (size_t)f.stride + 12 * 4;
+    const uint8_t *o = f.data + 16 * (size_t)f.stride + 52 * 4;
+    assert_true(abs(g[0] - 0x80) <= 4 && abs(g[1] - 0x80) <= 4 && abs(g[2] - 0x80) <= 4);
+    assert_true(abs(o[2] - 0xC0) <= 8 && abs(o[1] - 0x40) <= 8 && abs(o[0] - 0x20) <= 8);
+    cap_image_free(&f);
+}
+
+static void test_image_load_errors(void **state)
+{
+    (void)state;
+    coach_frame f;
+    char err[256];
+    /* a PNG signature followed by rubbish */
+    static const uint8_t bad[] = {0x89, 'P', 'N', 'G', '\r', '\n', 0x1A, '\n', 0, 0, 0, 13,
+                                  'I', 'H', 'D', 'R', 0, 0, 0, 9, 0, 0, 0, 9, 8, 2, 0, 0, 0,
+                                  0xDE, 0xAD, 0xBE, 0xEF, 1, 2, 3, 4, 5};
+    write_bytes(tmp_path("broken.png"), bad, sizeof bad);
+    int rc = cap_image_load(tmp_path("broken.png"), &f, err, sizeof err);
+    assert_true(rc < 0);
+    assert_null(f.data);
+    print_message("corrupt: %s\n", err);
+    assert_non_null(strstr(err, "broken.png"));
+    assert_null(strchr(err, '\n'));
+
+    write_bytes(tmp_path("notes.txt"), "hello\n", 6);
+    assert_int_equal(cap_image_load(tmp_path("notes.txt"), &f, err, sizeof err), -EINVAL);
+    assert_non_null(strstr(err, "notes.txt"));
+    assert_non_null(strstr(err, "not a PNG or JPEG"));
+
+    assert_int_equal(cap_image_load(tmp_path("missing.png"), &f, err, sizeof err), -ENOENT);
+    assert_non_null(strstr(err, "missing.png"));
+    assert_non_null(strstr(err, strerror(ENOENT)));
+}
+
+static uint32_t frame_colour(const cap_frame *f)
+{
+    const uint8_t *p = f->view.data + (size_t)(f->view.h / 2) * (size_t)f->view.stride +
+                       (size_t)(f->view.w / 2) * 4;
+    return (uint32_t)p[2] << 16 | (uint32_t)p[1] << 8 | p[0];
+}
+
+static void test_still_folder_playback(void **state)
+{
+    (void)state;
+    char dir[300];
+    snprintf(dir, sizeof dir, "%s/album", g_tmpdir);
+    assert_int_equal(mkdir(dir, 0700), 0);
+    char p[400];
+    snprintf(p, sizeof p, "%s/img10.png", dir); /* natural order: after img2 */
+    write_png(p, 64, 64, pat_blue);
+    snprintf(p, sizeof p, "%s/img1.png", dir);
+    write_png(p, 80, 60, pat_red);
+    snprintf(p, sizeof p, "%s/img2.png", dir);
+    write_png(p, 120, 90, pat_green);
+    static const uint8_t bad[] = {0x89, 'P', 'N', 'G', '\r', '\n', 0x1A, '\n', 0, 0, 0, 13,
+                                  'I', 'H', 'D', 'R', 0, 0, 0, 9, 0, 0, 0, 9, 8, 2, 0, 0, 0, 7};
+    snprintf(p, sizeof p, "%s/img3.png", dir);
+    write_bytes(p, bad, sizeof bad);
+    snprintf(p, sizeof p, "%s/readme.txt", dir);
+    write_bytes(p, "x", 1);
+
+    char err[256];
+    cap_source_opts o = {.fps = 1}; /* one frame a second: 4 frames per still */
+    cap_source *s = cap_source_open(dir, &o, err, sizeof err);
+    if (!s)
+        print_error("%s\n", err);
+    assert_non_null(s);
+    assert_false(cap_source_is_live(s));
+    assert_true(cap_source_max_bytes(s) >= 120u * 90u * 4u);
+    assert_non_null(strstr(s->note, "readme.txt")); /* skipped, said so */
+    cap_mailbox *m = cap_mailbox_create(cap_source_max_bytes(s));
+    static const uint32_t want[] = {0xD02010, 0x10C040, 0x1030E0, 0xD02010};
+    static const int want_w[] = {80, 120, 64, 80};
+    int saw_skip = 0;
+    for (int i = 0; i < 16; i++) {
+        cap_frame meta, f;
+        memset(&meta, 0, sizeof meta);
+        s->note[0] = '\0';
+        assert_int_equal(s->ops->produce(s, m, &meta), 0);
+        cap_mailbox_publish(m, &meta);
+        if (strstr(s->note, "img3.png"))
+            saw_skip = 1;
+        assert_int_equal(cap_mailbox_take(m, &f), 0);
+        assert_int_equal(f.seq, (uint64_t)i);
+        assert_int_equal(f.view.w, want_w[i / 4]);
+        assert_int_equal(frame_colour(&f), want[i / 4]);
+        assert_false(f.truth.valid);
+        cap_mailbox_release(m);
+    }
+    assert_true(saw_skip); /* the damaged one was skipped with a note */
+    cap_mailbox_destroy(m);
+    cap_source_destroy(s);
+
+    /* a single still plays through the same path */
+    snprintf(p, sizeof p, "%s/img2.png", dir);
+    s = cap_source_open(p, &o, err, sizeof err);
+    assert_non_null(s);
+    assert_non_null(strstr(cap_source_name(s), "img2.png"));
+    cap_source_destroy(s);
+}
+
+static void test_still_folder_errors(void **state)
+{
+    (void)state;
+    char dir[300], err[256];
+    snprintf(dir, sizeof dir, "%s/empty", g_tmpdir);
+    assert_int_equal(mkdir(dir, 0700), 0);
+    cap_source_opts o = {0};
+    assert_null(cap_source_open(dir, &o, err, sizeof err));
+    assert_non_null(strstr(err, dir));
+    assert_non_null(strstr(err, "no PNG or JPEG"));
+    /* only damaged images */
+    char p[400];
+    snprintf(p, sizeof p, "%s/a.jpg", dir);
+    static const uint8_t junk[] = {0xFF, 0xD8, 0xFF, 0xC0, 0, 17, 8, 0, 16, 0, 16, 3, 1, 2, 3, 4};
+    write_bytes(p, junk, sizeof junk);
+    assert_null(cap_source_open(dir, &o, err, sizeof err));
+    print_message("damaged folder: %s\n", err);
+    assert_non_null(strstr(err, "a.jpg"));
+    assert_null(strchr(err, '\n'));
+}
 
 /* ==== section B ==== */
 
@@ -17,6 +998,27 @@ int main(void)
 {
     const struct CMUnitTest tests[] = {
         /* ---- section A ---- */
+        cmocka_unit_test(test_mailbox_drop_counting),
+        cmocka_unit_test(test_mailbox_newest_wins),
+        cmocka_unit_test(test_mailbox_reader_buffer_kept),
+        cmocka_unit_test(test_mailbox_producer_thread),
+        cmocka_unit_test(test_thread_stop_paced_demo),
+        cmocka_unit_test(test_thread_stop_silent_device),
+        cmocka_unit_test(test_thread_lost_then_back),
+        cmocka_unit_test(test_thread_stop_while_recovering),
+        cmocka_unit_test(test_thread_fatal_error_ends),
+        cmocka_unit_test(test_demo_deterministic),
+        cmocka_unit_test(test_demo_sizes),
+        cmocka_unit_test(test_demo_exposure_one_stop),
+        cmocka_unit_test(test_demo_horizon_truth),
+        cmocka_unit_test(test_demo_blur_edge_width),
+        cmocka_unit_test(test_demo_tabletop_truth),
+        cmocka_unit_test(test_source_dispatch),
+        cmocka_unit_test_setup_teardown(test_image_load_png, tmpdir_setup, tmpdir_teardown),
+        cmocka_unit_test_setup_teardown(test_image_load_jpeg, tmpdir_setup, tmpdir_teardown),
+        cmocka_unit_test_setup_teardown(test_image_load_errors, tmpdir_setup, tmpdir_teardown),
+        cmocka_unit_test_setup_teardown(test_still_folder_playback, tmpdir_setup, tmpdir_teardown),
+        cmocka_unit_test_setup_teardown(test_still_folder_errors, tmpdir_setup, tmpdir_teardown),
         /* ---- section B ---- */
     };
     return cmocka_run_group_tests(tests, NULL, NULL);
