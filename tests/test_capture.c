@@ -418,6 +418,11 @@ static void test_thread_fatal_error_ends(void **state)
 
 /* ---- demo scenes ---- */
 
+static char g_tmpdir[256];
+static const char *tmp_path(const char *name);
+static int tmpdir_setup(void **state);
+static int tmpdir_teardown(void **state);
+
 /* sRGB decoding, IEC 61966-2-1:1999 section 5.2 (written out here rather
  * than shared with the code under test). */
 static double ref_srgb_decode(int code)
@@ -702,6 +707,65 @@ static void test_demo_blur_edge_width(void **state)
     cap_source_destroy(s);
 }
 
+static void save_png(const char *path, const uint8_t *img, int w, int h)
+{
+    SDL_Surface *sf = SDL_CreateRGBSurfaceWithFormatFrom((void *)img, w, h, 32, w * 4,
+                                                         SDL_PIXELFORMAT_XRGB8888);
+    assert_non_null(sf);
+    assert_int_equal(IMG_SavePNG(sf, path), 0);
+    SDL_FreeSurface(sf);
+}
+
+/* The blur a frame reports is the blur it has: OpenCV's GaussianBlur of the
+ * sharp frame (in linear light) must match the frame rendered soft. */
+static void test_demo_blur_matches_opencv(void **state)
+{
+    (void)state;
+    if (access("/usr/bin/python3", X_OK) != 0)
+        skip();
+    int w = 1280, h = 720;
+    cap_source *s = open_demo("demo", w, h);
+    uint8_t *img = malloc((size_t)w * h * 4);
+    for (int k = 0; k < 2; k++) {
+        cap_demo_pin pin = {.exposure_ev = 0, .blur_sigma = k ? 3.0 : 0.0, .horizon_deg = -1.5};
+        cap_demo_set_pin(s, &pin);
+        cap_demo_render(s, 4.0, img, w * 4, NULL);
+        save_png(tmp_path(k ? "soft.png" : "sharp.png"), img, w, h);
+    }
+    free(img);
+    cap_source_destroy(s);
+    FILE *f = fopen(tmp_path("cmp.py"), "w");
+    assert_non_null(f);
+    fputs("import sys, cv2, numpy as np\n"
+          "d = sys.argv[1]\n"
+          "def lin(p):\n"
+          "    c = cv2.imread(p, cv2.IMREAD_COLOR).astype(np.float64) / 255.0\n"
+          "    # IEC 61966-2-1 sRGB decoding\n"
+          "    return np.where(c <= 0.04045, c / 12.92, ((c + 0.055) / 1.055) ** 2.4)\n"
+          "def enc(l):\n"
+          "    l = np.clip(l, 0, 1)\n"
+          "    return 255 * np.where(l <= 0.0031308, 12.92 * l, 1.055 * l ** (1 / 2.4) - 0.055)\n"
+          "sharp = lin(d + '/sharp.png')\n"
+          "got = enc(lin(d + '/soft.png'))\n"
+          "m = 16\n"
+          "def err(sg):\n"
+          "    ref = enc(cv2.GaussianBlur(sharp, (0, 0), sg, borderType=cv2.BORDER_REFLECT))\n"
+          "    return np.abs(ref - got)[m:-m, m:-m]\n"
+          "diff = err(3.0)\n"
+          "grid = np.arange(1.5, 4.51, 0.25)\n"
+          "best = grid[int(np.argmin([err(g).mean() for g in grid]))]\n"
+          "print('sigma 3: mean %.3f p99.9 %.3f codes; best-fitting sigma %.2f' % (diff.mean(), np.percentile(diff, 99.9), best))\n"
+          "sys.exit(0 if diff.mean() < 0.5 and np.percentile(diff, 99.9) < 4.0 and abs(best - 3.0) <= 0.25 else 1)\n",
+          f);
+    fclose(f);
+    char cmd[700];
+    snprintf(cmd, sizeof cmd, "/usr/bin/python3 '%s' '%s'", tmp_path("cmp.py"), g_tmpdir);
+    /* differences in 8-bit sRGB codes; limits are ours: under half a code
+     * on average, under 4 codes for all but 0.1 % of pixels, and of the
+     * sigmas 1.5..4.5 in quarter steps OpenCV's 3.0 must fit best (+-0.25) */
+    assert_int_equal(system(cmd), 0);
+}
+
 static void test_demo_tabletop_truth(void **state)
 {
     (void)state;
@@ -779,8 +843,6 @@ static void test_source_dispatch(void **state)
 }
 
 /* ---- stills ---- */
-
-static char g_tmpdir[256];
 
 static const char *tmp_path(const char *name)
 {
@@ -1012,6 +1074,7 @@ int main(void)
         cmocka_unit_test(test_demo_exposure_one_stop),
         cmocka_unit_test(test_demo_horizon_truth),
         cmocka_unit_test(test_demo_blur_edge_width),
+        cmocka_unit_test_setup_teardown(test_demo_blur_matches_opencv, tmpdir_setup, tmpdir_teardown),
         cmocka_unit_test(test_demo_tabletop_truth),
         cmocka_unit_test(test_source_dispatch),
         cmocka_unit_test_setup_teardown(test_image_load_png, tmpdir_setup, tmpdir_teardown),
