@@ -758,7 +758,7 @@ static void test_demo_blur_matches_opencv(void **state)
           "sys.exit(0 if diff.mean() < 0.5 and np.percentile(diff, 99.9) < 4.0 and abs(best - 3.0) <= 0.25 else 1)\n",
           f);
     fclose(f);
-    char cmd[700];
+    char cmd[1200];
     snprintf(cmd, sizeof cmd, "/usr/bin/python3 '%s' '%s'", tmp_path("cmp.py"), g_tmpdir);
     /* differences in 8-bit sRGB codes; limits are ours: under half a code
      * on average, under 4 codes for all but 0.1 % of pixels, and of the
