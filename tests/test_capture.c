@@ -1033,6 +1033,44 @@ static void test_still_folder_playback(void **state)
     cap_source_destroy(s);
 }
 
+static uint32_t pat_checker(int x, int y)
+{
+    return ((x / 2 + y / 2) & 1) ? 0xFFFFFFu : 0x000000u;
+}
+
+static void test_still_large_shrunk(void **state)
+{
+    (void)state;
+    /* wider than 3840: played at half size, each pixel the mean of 2x2 */
+    write_png(tmp_path("wide.png"), 4002, 1000, pat_checker);
+    char err[256];
+    cap_source_opts o = {.fps = 30};
+    cap_source *s = cap_source_open(tmp_path("wide.png"), &o, err, sizeof err);
+    assert_non_null(s);
+    assert_int_equal(cap_source_max_bytes(s), 2001u * 500u * 4u);
+    cap_mailbox *m = cap_mailbox_create(cap_source_max_bytes(s));
+    cap_frame meta, f;
+    assert_int_equal(s->ops->produce(s, m, &meta), 0);
+    cap_mailbox_publish(m, &meta);
+    assert_int_equal(cap_mailbox_take(m, &f), 0);
+    assert_int_equal(f.view.w, 2001);
+    assert_int_equal(f.view.h, 500);
+    /* 2x2 blocks of the 2-pixel checker are uniform: black or white */
+    const uint8_t *p0 = f.view.data + 10 * (size_t)f.view.stride + 10 * 4;
+    const uint8_t *p1 = f.view.data + 10 * (size_t)f.view.stride + 11 * 4;
+    assert_true((p0[1] == 0 && p1[1] == 255) || (p0[1] == 255 && p1[1] == 0));
+    cap_mailbox_release(m);
+    cap_mailbox_destroy(m);
+    cap_source_destroy(s);
+    /* the analyse path keeps the full size */
+    coach_frame full;
+    assert_int_equal(cap_image_load(tmp_path("wide.png"), &full, err, sizeof err), 0);
+    assert_int_equal(full.w, 4002);
+    cap_image_free(&full);
+    assert_int_equal(cap_image_load(g_tmpdir, &full, err, sizeof err), -EISDIR);
+    assert_non_null(strstr(err, "folder"));
+}
+
 static void test_still_folder_errors(void **state)
 {
     (void)state;
@@ -1081,6 +1119,7 @@ int main(void)
         cmocka_unit_test_setup_teardown(test_image_load_jpeg, tmpdir_setup, tmpdir_teardown),
         cmocka_unit_test_setup_teardown(test_image_load_errors, tmpdir_setup, tmpdir_teardown),
         cmocka_unit_test_setup_teardown(test_still_folder_playback, tmpdir_setup, tmpdir_teardown),
+        cmocka_unit_test_setup_teardown(test_still_large_shrunk, tmpdir_setup, tmpdir_teardown),
         cmocka_unit_test_setup_teardown(test_still_folder_errors, tmpdir_setup, tmpdir_teardown),
         /* ---- section B ---- */
     };
