@@ -1044,8 +1044,11 @@ static int demo_produce(cap_source *s, cap_mailbox *mb, cap_frame *meta)
     demo_source *d = (demo_source *)s;
     size_t bytes = (size_t)d->w * (size_t)d->h * 4;
     uint8_t *dst = cap_mailbox_begin(mb, bytes);
-    if (!dst)
+    if (!dst) {
+        snprintf(s->note, sizeof s->note, "demo: a %dx%d frame does not fit the frame buffers",
+                 d->w, d->h);
         return -ENOBUFS;
+    }
     /* Scene time follows the frame count, so a run is repeatable whatever
      * the machine's speed. */
     double t = (double)d->seq / d->base.fps;

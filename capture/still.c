@@ -6,6 +6,11 @@
  * republished at the source rate so the UI keeps analysing it like a live
  * view.  Images larger than 3840x2160 are shrunk by a whole factor (box
  * average) so a folder of phone photos does not need gigabytes of buffers.
+ *
+ * Threads: cap_image_load() may be called on any thread (the analyse command
+ * on the main one, the source on the capture thread); SDL_image is set up
+ * once through pthread_once and SDL keeps its error text per thread.  A
+ * still source, once started, is used by the capture thread alone.
  */
 #include <dirent.h>
 #include <errno.h>
@@ -323,8 +328,11 @@ static int still_produce(cap_source *src, cap_mailbox *mb, cap_frame *meta)
     }
     size_t bytes = (size_t)s->w * (size_t)s->h * 4;
     uint8_t *dst = cap_mailbox_begin(mb, bytes);
-    if (!dst)
+    if (!dst) {
+        put_line(src->note, sizeof src->note, "%s: a %dx%d image does not fit the frame buffers",
+                 src->name, s->w, s->h);
         return -ENOBUFS;
+    }
     if (s->mb != mb) {
         memset(s->held, 0, sizeof s->held);
         s->mb = mb;
