@@ -150,9 +150,12 @@ coach_motion *coach_motion_create(void);
 void coach_motion_destroy(coach_motion *m);
 void coach_motion_reset(coach_motion *m);
 /* Shift of this frame's content against the previous one, analysis pixels
- * (+x right, +y down).  Returns 1 when measured, 0 on the first frame or
- * when either frame has too little texture. */
-int coach_motion_run(coach_motion *m, const float *luma, int w, int h, double *dx, double *dy);
+ * (+x right, +y down), leaving out the region around exclude (the subject's
+ * box in fractions of the analysis image; NULL for none) in this frame and
+ * the one given with the previous frame.  Returns 1 when measured, 0 on the
+ * first frame or when either frame has too little texture. */
+int coach_motion_run(coach_motion *m, const float *luma, int w, int h, const coach_box *exclude,
+                     double *dx, double *dy);
 
 /* Debug views of the last coach_compose_run (the inspect subcommand): the
  * level estimate, and the saliency map (COACH_SAL_N^2, NULL before a run). */

@@ -230,7 +230,8 @@ void coach_compose_run(coach_compose *c, const coach_aimg *img, int full_w, int 
 
     /* Steadiness. */
     double dx = 0, dy = 0;
-    int measured = coach_motion_run(c->motion, img->luma, img->w, img->h, &dx, &dy);
+    int measured = coach_motion_run(c->motion, img->luma, img->w, img->h,
+                                    sa.has_subject ? &sa.subject : NULL, &dx, &dy);
     if (measured && c->have_t && t > c->t_prev)
         out->motion_px_s = sqrt(dx * dx + dy * dy) * s / (t - c->t_prev);
     lead_room(c, t, measured, dx * s / full_w, out);

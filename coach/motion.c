@@ -1,8 +1,15 @@
 /* Global frame-to-frame shift by phase correlation (Kuglin & Hudson 1975):
  * the normalised cross-power spectrum of two frames is a pure phase ramp
  * whose inverse transform peaks at their relative shift.  A Hann window
- * keeps the frame borders from dominating the spectrum, and a parabola
- * through the peak and its neighbours gives the sub-pixel shift.
+ * keeps the frame borders from dominating the spectrum; the sub-pixel
+ * peak comes from the ratio of the peak to its larger neighbour, the
+ * estimator Foroosh, Zerubia & Berthod (2002) derive for the sinc-shaped
+ * phase correlation peak.
+ *
+ * This is the camera's motion, so the subject is left out: the region
+ * around the subject's box in either frame is filled with the patch mean
+ * before the transform, otherwise on a plain backdrop the subject's own
+ * motion would be taken for the camera's (and lead room would vanish).
  *
  * The window is MW x MH pixels taken from the middle of the analysis image
  * after an integer box reduction by k = max(1, w / 160), so the measurable
@@ -16,15 +23,22 @@
 #define MW 128
 #define MH 64
 #define MN (MW * MH)
+/* Lowest phase-correlation peak taken as a match (fraction of the ideal 1). */
+#define MIN_PEAK 0.08f
+/* Texture needed to track: mean squared difference between neighbouring
+ * patch cells, in (8-bit luma)^2 (a smooth gradient under noise has less). */
+#define MIN_TEXTURE 0.5
 
 struct coach_motion {
     coach_fft_plan px, py;
     int have_prev;
     int prev_k;
+    int prev_has_box;
+    coach_box prev_box;
     float win[MN];
-    float prev[2 * MN];   /* spectrum of the previous frame */
-    float cur[2 * MN];
-    float work[2 * MN];
+    float prev_raw[MN];   /* previous reduced patch, unmasked (-1: outside) */
+    float cur_raw[MN];
+    float a[2 * MN], b[2 * MN];
     float scratch[2 * MN];
 };
 
@@ -52,15 +66,12 @@ void coach_motion_reset(coach_motion *m)
         m->have_prev = 0;
 }
 
-/* Fills cur with the windowed, mean-removed patch; returns its variance. */
-static double take_patch(coach_motion *m, const float *luma, int w, int h, int k)
+/* The middle MW x MH of the image reduced by k; -1 where it falls outside. */
+static void take_patch(const float *luma, int w, int h, int k, float *p)
 {
     const int rw = w / k, rh = h / k;
     const int ox = (rw - MW) / 2, oy = (rh - MH) / 2;
     const float inv = 1.0f / (float)(k * k);
-    double sum = 0;
-    int cnt = 0;
-    float *p = m->work; /* real patch, MN floats */
     for (int y = 0; y < MH; y++) {
         int ry = oy + y;
         for (int x = 0; x < MW; x++) {
@@ -68,28 +79,69 @@ static double take_patch(coach_motion *m, const float *luma, int w, int h, int k
             float v = -1.0f;
             if (rx >= 0 && ry >= 0 && rx < rw && ry < rh) {
                 const float *s = luma + (size_t)ry * k * w + (size_t)rx * k;
-                float a = 0;
+                float acc = 0;
                 for (int j = 0; j < k; j++)
                     for (int i = 0; i < k; i++)
-                        a += s[(size_t)j * w + i];
-                v = a * inv;
-                sum += v;
-                cnt++;
+                        acc += s[(size_t)j * w + i];
+                v = acc * inv;
             }
             p[y * MW + x] = v;
         }
     }
-    if (cnt == 0)
+}
+
+/* Marks (as -1) the patch cells under a box given in fractions of the
+ * analysis image, grown by a quarter of its size on each side. */
+static void mask_box(float *p, const coach_box *bx, int w, int h, int k)
+{
+    const int rw = w / k, rh = h / k;
+    const int ox = (rw - MW) / 2, oy = (rh - MH) / 2;
+    double x0 = (bx->x - 0.75 * bx->w) * rw - ox, x1 = (bx->x + 0.75 * bx->w) * rw - ox;
+    double y0 = (bx->y - 0.75 * bx->h) * rh - oy, y1 = (bx->y + 0.75 * bx->h) * rh - oy;
+    int ix0 = (int)floor(x0), ix1 = (int)ceil(x1), iy0 = (int)floor(y0), iy1 = (int)ceil(y1);
+    if (ix0 < 0) ix0 = 0;
+    if (iy0 < 0) iy0 = 0;
+    if (ix1 > MW) ix1 = MW;
+    if (iy1 > MH) iy1 = MH;
+    for (int y = iy0; y < iy1; y++)
+        for (int x = ix0; x < ix1; x++)
+            p[y * MW + x] = -1.0f;
+}
+
+/* Mean-removed, windowed complex patch from the valid (>= 0) cells, the
+ * others set to the mean; returns the texture: the mean squared difference
+ * between valid neighbouring cells (0 with too few valid cells). */
+static double prepare(const coach_motion *m, const float *raw, const float *mask, float *out)
+{
+    double sum = 0, tex = 0;
+    int cnt = 0, ntex = 0;
+    for (int y = 0; y < MH; y++)
+        for (int x = 0; x < MW; x++) {
+            int i = y * MW + x;
+            if (raw[i] < 0 || mask[i] < 0)
+                continue;
+            sum += raw[i];
+            cnt++;
+            if (x + 1 < MW && raw[i + 1] >= 0 && mask[i + 1] >= 0) {
+                double d = raw[i + 1] - raw[i];
+                tex += d * d;
+                ntex++;
+            }
+            if (y + 1 < MH && raw[i + MW] >= 0 && mask[i + MW] >= 0) {
+                double d = raw[i + MW] - raw[i];
+                tex += d * d;
+                ntex++;
+            }
+        }
+    if (cnt < MN / 8 || ntex == 0)
         return 0;
     const float mean = (float)(sum / cnt);
-    double var = 0;
-    for (int i = MN - 1; i >= 0; i--) {
-        float v = p[i] < 0 ? 0.0f : p[i] - mean;
-        var += (double)v * v * m->win[i];
-        m->cur[2 * i] = v * m->win[i];
-        m->cur[2 * i + 1] = 0;
+    for (int i = 0; i < MN; i++) {
+        float v = (raw[i] >= 0 && mask[i] >= 0) ? raw[i] - mean : 0.0f;
+        out[2 * i] = v * m->win[i];
+        out[2 * i + 1] = 0;
     }
-    return var / MN;
+    return tex / ntex;
 }
 
 static double parabola(double a, double b, double c)
@@ -98,7 +150,29 @@ static double parabola(double a, double b, double c)
     return den < 0 ? 0.5 * (a - c) / den : 0.0;
 }
 
-int coach_motion_run(coach_motion *m, const float *luma, int w, int h, double *dx, double *dy)
+/* Sub-pixel offset of a peak c0 with neighbours cm (at -1) and cp (at +1).
+ * A sharp, sinc-shaped peak (its far neighbour well below the near one)
+ * follows Foroosh, Zerubia & Berthod (2002): d = c1 / (c1 +- c0) with c1
+ * the larger neighbour, the root within a pixel of it.  A broad, symmetric
+ * peak is not sinc-shaped; a parabola through the three values suits it. */
+static double subpixel(double cm, double c0, double cp)
+{
+    double c1 = cp > cm ? cp : cm, cf = cp > cm ? cm : cp, sgn = cp > cm ? 1.0 : -1.0;
+    if (c0 <= 0 || c1 <= 0)
+        return 0;
+    if (cf > 0.6 * c1)
+        return parabola(cm, c0, cp);
+    double d1 = c1 / (c1 + c0), d2 = c1 / (c1 - c0);
+    double d = (d1 >= 0 && d1 < 1) ? d1 : d2;
+    if (!(d >= 0 && d < 1))
+        d = 0;
+    if (d > 0.5)
+        d = 0.5;
+    return sgn * d;
+}
+
+int coach_motion_run(coach_motion *m, const float *luma, int w, int h, const coach_box *exclude,
+                     double *dx, double *dy)
 {
     *dx = *dy = 0;
     if (!m || w < 8 || h < 8)
@@ -106,45 +180,63 @@ int coach_motion_run(coach_motion *m, const float *luma, int w, int h, double *d
     int k = w / 160;
     if (k < 1)
         k = 1;
-    double var = take_patch(m, luma, w, h, k);
-    if (var < 0.25) {   /* under ~1 luma level of texture: nothing to track */
-        m->have_prev = 0;
-        return 0;
-    }
-    coach_fft2d(&m->px, &m->py, m->cur, m->scratch, 0);
+    take_patch(luma, w, h, k, m->cur_raw);
     int measured = 0;
     if (m->have_prev && m->prev_k == k) {
-        for (int i = 0; i < MN; i++) {
-            float ar = m->cur[2 * i], ai = m->cur[2 * i + 1];
-            float br = m->prev[2 * i], bi = -m->prev[2 * i + 1];
-            float re = ar * br - ai * bi, im = ar * bi + ai * br;
-            float mag = sqrtf(re * re + im * im) + 1e-20f;
-            m->work[2 * i] = re / mag;
-            m->work[2 * i + 1] = im / mag;
-        }
-        coach_fft2d(&m->px, &m->py, m->work, m->scratch, 1);
-        int bi = 0;
-        float bv = -1e30f;
+        /* One mask for both frames: the subject's region in either. */
+        float *mask = m->scratch; /* MN floats of the scratch, reused below */
         for (int i = 0; i < MN; i++)
-            if (m->work[2 * i] > bv) {
-                bv = m->work[2 * i];
-                bi = i;
+            mask[i] = 0;
+        if (exclude)
+            mask_box(mask, exclude, w, h, k);
+        if (m->prev_has_box)
+            mask_box(mask, &m->prev_box, w, h, k);
+        double va = prepare(m, m->cur_raw, mask, m->a);
+        double vb = prepare(m, m->prev_raw, mask, m->b);
+        if (va >= MIN_TEXTURE && vb >= MIN_TEXTURE) {
+            coach_fft2d(&m->px, &m->py, m->a, m->scratch, 0);
+            coach_fft2d(&m->px, &m->py, m->b, m->scratch, 0);
+            for (int i = 0; i < MN; i++) {
+                float ar = m->a[2 * i], ai = m->a[2 * i + 1];
+                float br = m->b[2 * i], bi = -m->b[2 * i + 1];
+                float re = ar * br - ai * bi, im = ar * bi + ai * br;
+                float mag = sqrtf(re * re + im * im) + 1e-20f;
+                m->a[2 * i] = re / mag;
+                m->a[2 * i + 1] = im / mag;
             }
-        int bx = bi % MW, by = bi / MW;
-#define RE(x, y) m->work[2 * ((((y) + MH) % MH) * MW + (((x) + MW) % MW))]
-        double sx = bx + parabola(RE(bx - 1, by), RE(bx, by), RE(bx + 1, by));
-        double sy = by + parabola(RE(bx, by - 1), RE(bx, by), RE(bx, by + 1));
+            coach_fft2d(&m->px, &m->py, m->a, m->scratch, 1);
+            int bi = 0;
+            float bv = -1e30f;
+            for (int i = 0; i < MN; i++)
+                if (m->a[2 * i] > bv) {
+                    bv = m->a[2 * i];
+                    bi = i;
+                }
+            /* The peak's height is the share of the frequencies that agree
+             * on one shift (1 for a pure shift); among noise it stays low
+             * and measures nothing. */
+            if (bv < MIN_PEAK * MN)
+                goto done;
+            int bx = bi % MW, by = bi / MW;
+#define RE(x, y) m->a[2 * ((((y) + MH) % MH) * MW + (((x) + MW) % MW))]
+            double sx = bx + subpixel(RE(bx - 1, by), RE(bx, by), RE(bx + 1, by));
+            double sy = by + subpixel(RE(bx, by - 1), RE(bx, by), RE(bx, by + 1));
 #undef RE
-        if (sx > MW / 2)
-            sx -= MW;
-        if (sy > MH / 2)
-            sy -= MH;
-        *dx = sx * k;
-        *dy = sy * k;
-        measured = 1;
+            if (sx > MW / 2)
+                sx -= MW;
+            if (sy > MH / 2)
+                sy -= MH;
+            *dx = sx * k;
+            *dy = sy * k;
+            measured = 1;
+        }
     }
-    memcpy(m->prev, m->cur, sizeof m->prev);
+done:
+    memcpy(m->prev_raw, m->cur_raw, sizeof m->prev_raw);
     m->have_prev = 1;
     m->prev_k = k;
+    m->prev_has_box = exclude != NULL;
+    if (exclude)
+        m->prev_box = *exclude;
     return measured;
 }
