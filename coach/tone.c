@@ -487,33 +487,42 @@ VEC static void lap_row(const uint8_t *restrict u, const uint8_t *restrict c,
     L[w - 1] = (int16_t)(u[w - 1] + d[w - 1] + 2 * c[w - 2] - 4 * c[w - 1]);
 }
 
-VEC static void lap_sums(const int16_t *restrict L, int w, tone_sums *s)
+/* Sums of L and L^2 over the row and, for rows inside the blocks, the
+ * block column sums (mode 1: first row of a block, 2: later rows), in one
+ * read of L. */
+VEC static void lap_sums_acc(const int16_t *restrict L, int w, int n_acc, int mode,
+                             int32_t *restrict al, int32_t *restrict aq, tone_sums *s)
 {
     for (int x0 = 0; x0 < w; x0 += LAP_CHUNK) {
         int x1 = x0 + LAP_CHUNK < w ? x0 + LAP_CHUNK : w;
+        int a1 = mode ? (x1 < n_acc ? x1 : n_acc) : x0;
+        if (a1 < x0)
+            a1 = x0;
         int32_t sl = 0, ql = 0;
-        for (int x = x0; x < x1; x++) {
+        int x = x0;
+        if (mode == 1) {
+            for (; x < a1; x++) {
+                int32_t l = L[x], q = l * l;
+                sl += l;
+                ql += q;
+                al[x] = l;
+                aq[x] = q;
+            }
+        } else if (mode == 2) {
+            for (; x < a1; x++) {
+                int32_t l = L[x], q = l * l;
+                sl += l;
+                ql += q;
+                al[x] += l;
+                aq[x] += q;
+            }
+        }
+        for (; x < x1; x++) {
             sl += L[x];
             ql += (int32_t)L[x] * L[x];
         }
         s->s_l += sl;
         s->q_l += (uint32_t)ql;
-    }
-}
-
-VEC static void acc_lap(int32_t *restrict al, int32_t *restrict aq, const int16_t *restrict L, int n,
-                    int first)
-{
-    if (first) {
-        for (int x = 0; x < n; x++) {
-            al[x] = L[x];
-            aq[x] = (int32_t)L[x] * L[x];
-        }
-    } else {
-        for (int x = 0; x < n; x++) {
-            al[x] += L[x];
-            aq[x] += (int32_t)L[x] * L[x];
-        }
     }
 }
 
@@ -619,10 +628,10 @@ int coach_tone_run(coach_tone *t, const coach_frame *f, coach_result *out, coach
         const uint8_t *u = ly > 0 ? ring[(ly - 1) % 3] : ring[(ly + 1) % 3];
         const uint8_t *d = ly < h - 1 ? ring[(ly + 1) % 3] : ring[(ly - 1) % 3];
         lap_row(u, c, d, w, t->lap);
-        lap_sums(t->lap, w, &s);
+        int mode = ly < bh ? (ly % scale == 0 ? 1 : 2) : 0;
+        lap_sums_acc(t->lap, w, bw, mode, t->accl, t->accq, &s);
         if (ly < bh) {
             int yb = ly % scale;
-            acc_lap(t->accl, t->accq, t->lap, bw, yb == 0);
             if (yb == scale - 1) {
                 size_t o = (size_t)(ly / scale) * aw;
                 flush_i32(t->accl, scale, aw, kblk, pl_l + o);
