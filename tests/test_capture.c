@@ -304,6 +304,18 @@ static fake_dev *fake_new(int produce_rc, int recover_mode)
     return f;
 }
 
+/* Starts the thread on a fake device and gives it one readable byte. */
+static cap_thread *start_fake(fake_dev *f, cap_mailbox **m, ev_log *l)
+{
+    *m = cap_mailbox_create(16);
+    memset(l, 0, sizeof *l);
+    cap_thread *t = cap_thread_start(&f->base, *m, log_event, l);
+    assert_non_null(t);
+    ssize_t w = write(f->wr, "x", 1);
+    assert_int_equal(w, 1);
+    return t;
+}
+
 static void test_thread_stop_paced_demo(void **state)
 {
     (void)state;
@@ -350,13 +362,9 @@ static void test_thread_stop_silent_device(void **state)
 static void test_thread_lost_then_back(void **state)
 {
     (void)state;
-    fake_dev *f = fake_new(-ENODEV, 1);
-    cap_mailbox *m = cap_mailbox_create(16);
-    ev_log l = {0};
-    cap_thread *t = cap_thread_start(&f->base, m, log_event, &l);
-    assert_non_null(t);
-    ssize_t w = write(f->wr, "x", 1);
-    assert_int_equal(w, 1);
+    cap_mailbox *m;
+    ev_log l;
+    cap_thread *t = start_fake(fake_new(-ENODEV, 1), &m, &l);
     assert_true(wait_for(&l.frames, 1, 5.0));
     assert_int_equal(l.lost, 1);
     assert_int_equal(l.back, 1);
@@ -373,12 +381,9 @@ static void test_thread_lost_then_back(void **state)
 static void test_thread_stop_while_recovering(void **state)
 {
     (void)state;
-    fake_dev *f = fake_new(-EIO, 0);
-    cap_mailbox *m = cap_mailbox_create(16);
-    ev_log l = {0};
-    cap_thread *t = cap_thread_start(&f->base, m, log_event, &l);
-    ssize_t w = write(f->wr, "x", 1);
-    assert_int_equal(w, 1);
+    cap_mailbox *m;
+    ev_log l;
+    cap_thread *t = start_fake(fake_new(-EIO, 0), &m, &l);
     assert_true(wait_for(&l.lost, 1, 5.0));
     char st[256];
     cap_thread_status(t, st, sizeof st);
@@ -398,11 +403,9 @@ static void test_thread_fatal_error_ends(void **state)
     for (int with_note = 0; with_note < 2; with_note++) {
         fake_dev *f = fake_new(-EPROTO, 1);
         f->note = with_note ? "fake camera: sends frames of the wrong size" : NULL;
-        cap_mailbox *m = cap_mailbox_create(16);
-        ev_log l = {0};
-        cap_thread *t = cap_thread_start(&f->base, m, log_event, &l);
-        ssize_t w = write(f->wr, "x", 1);
-        assert_int_equal(w, 1);
+        cap_mailbox *m;
+        ev_log l;
+        cap_thread *t = start_fake(f, &m, &l);
         assert_true(wait_for(&l.end, 1, 5.0));
         char st[256];
         cap_thread_status(t, st, sizeof st);
