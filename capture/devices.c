@@ -8,12 +8,14 @@
  * call makes its own udev context, so nothing is shared. */
 #include <ctype.h>
 #include <errno.h>
+#include <fcntl.h>
 #include <libudev.h>
 #include <linux/videodev2.h>
 #include <stdio.h>
 #include <stdlib.h>
 #include <string.h>
 #include <strings.h>
+#include <sys/ioctl.h>
 #include <sys/stat.h>
 #include <sys/sysmacros.h>
 #include <unistd.h>
@@ -285,6 +287,21 @@ int cap_default_camera(char *path, size_t n)
     return -ENOENT;
 }
 
+/* libv4l2's plugin presents a multi-planar device as a single-planar
+ * one, so only the kernel's own answer tells. */
+static int raw_multiplanar(const char *node)
+{
+    int fd = open(node, O_RDWR | O_NONBLOCK | O_CLOEXEC);
+    if (fd < 0)
+        return 0;
+    struct v4l2_capability cap;
+    memset(&cap, 0, sizeof cap);
+    int r = ioctl(fd, VIDIOC_QUERYCAP, &cap);
+    close(fd);
+    uint32_t caps = (cap.capabilities & V4L2_CAP_DEVICE_CAPS) ? cap.device_caps : cap.capabilities;
+    return r == 0 && (caps & V4L2_CAP_VIDEO_CAPTURE_MPLANE) && !(caps & V4L2_CAP_VIDEO_CAPTURE);
+}
+
 void cap_camera_list_free(cap_camera_info *list, int n)
 {
     if (!list)
@@ -334,7 +351,7 @@ int cap_camera_list(cap_camera_info **out, char *err, size_t errlen)
         copy_str(c->card, sizeof c->card, id.card);
         copy_str(c->driver, sizeof c->driver, id.driver);
         copy_str(c->bus, sizeof c->bus, id.bus);
-        c->multiplanar = (caps & V4L2_CAP_VIDEO_CAPTURE_MPLANE) != 0;
+        c->multiplanar = raw_multiplanar(nodes[i]);
         int m = cap_v4l2_enum_modes(&cap_v4l2_io_default, fd, modes, CAP_V4L2_MAX_MODES);
         cap_v4l2_io_default.close(fd);
         if (m <= 0)

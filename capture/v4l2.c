@@ -24,10 +24,12 @@
 #include <linux/videodev2.h>
 #include <math.h>
 #include <poll.h>
+#include <pthread.h>
 #include <stdarg.h>
 #include <stdio.h>
 #include <stdlib.h>
 #include <string.h>
+#include <sys/ioctl.h>
 #include <sys/mman.h>
 #include <sys/stat.h>
 #include <time.h>
@@ -37,7 +39,76 @@
 
 /* ---- the seam's production side: libv4l2 ------------------------------- */
 
-static int io_open(const char *path, int flags) { return v4l2_open(path, flags); }
+/* libv4l2 writes its error lines to stderr unless v4l2_log_file is set;
+ * our own line names the device and the cause already, so they go nowhere
+ * (LIBV4L2_LOG_FILENAME still wins, for debugging). */
+static ssize_t discard_write(void *cookie, const char *buf, size_t n)
+{
+    (void)cookie;
+    (void)buf;
+    return (ssize_t)n;
+}
+
+static pthread_once_t g_log_once = PTHREAD_ONCE_INIT;
+
+static void quiet_libv4l2(void)
+{
+    if (!v4l2_log_file && !getenv("LIBV4L2_LOG_FILENAME"))
+        v4l2_log_file = fopencookie(NULL, "w", (cookie_io_functions_t){.write = discard_write});
+}
+
+/* libv4l2 prints its own lines to stderr when a node is not a V4L2 device;
+ * asking the kernel first keeps a bad --device to our one line. */
+static int io_open(const char *path, int flags)
+{
+    int fd = open(path, flags);
+    if (fd < 0)
+        return -1;
+    struct v4l2_capability cap;
+    int r;
+    do
+        r = ioctl(fd, VIDIOC_QUERYCAP, &cap);
+    while (r < 0 && errno == EINTR);
+    if (r < 0) {
+        close(fd);
+        errno = ENOTTY;
+        return -1;
+    }
+    pthread_once(&g_log_once, quiet_libv4l2);
+    /* libv4l2's multi-planar plugin announces itself with printf(), which
+     * would land among headless JSON lines.  Holding stdout's lock keeps
+     * every other thread's stdio output out of the short window in which
+     * descriptor 1 points at /dev/null. */
+    int mplane = (cap.capabilities & (V4L2_CAP_VIDEO_CAPTURE_MPLANE | V4L2_CAP_VIDEO_OUTPUT_MPLANE)) != 0;
+    int saved = -1;
+    if (mplane) {
+        flockfile(stdout);
+        fflush(stdout);
+        int nul = open("/dev/null", O_WRONLY | O_CLOEXEC);
+        saved = nul >= 0 ? fcntl(1, F_DUPFD_CLOEXEC, 3) : -1;
+        if (saved >= 0)
+            dup2(nul, 1);
+        if (nul >= 0)
+            close(nul);
+    }
+    int v = v4l2_fd_open(fd, 0);
+    int e0 = errno;
+    if (mplane) {
+        fflush(stdout);
+        if (saved >= 0) {
+            dup2(saved, 1);
+            close(saved);
+        }
+        funlockfile(stdout);
+    }
+    errno = e0;
+    if (v < 0) {
+        int e = errno;
+        close(fd);
+        errno = e;
+    }
+    return v;
+}
 static int io_close(int fd) { return v4l2_close(fd); }
 static int io_ioctl(int fd, unsigned long req, void *arg) { return v4l2_ioctl(fd, req, arg); }
 static void *io_mmap(void *addr, size_t len, int prot, int flags, int fd, int64_t off)
@@ -643,7 +714,15 @@ static int stream_start(v4l2_src *v, size_t max_bytes, char *err, size_t errlen)
         cap_v4l2_describe_error(err, errlen, v->node, "list formats", ENOMEM);
         return -ENOMEM;
     }
-    int n = cap_v4l2_enum_modes(io, v->fd, modes, CAP_V4L2_MAX_MODES);
+    /* A restart after a replug asks for the mode it had straight away;
+     * enumerating every format, size and rate again costs hundreds of
+     * ioctls for nothing. */
+    int again = max_bytes && v->want.fourcc && v->want.w > 0 && v->want.h > 0 && v->rate.num;
+    int n = again ? 1 : cap_v4l2_enum_modes(io, v->fd, modes, CAP_V4L2_MAX_MODES);
+    if (again) {
+        modes[0] = (cap_v4l2_mode){.fourcc = v->want.fourcc, .w = v->want.w, .h = v->want.h, .nrates = 1};
+        modes[0].rates[0] = v->rate;
+    }
     if (n < 0) {
         cap_v4l2_describe_error(err, errlen, v->node, "list formats", -n);
         free(modes);

@@ -64,12 +64,12 @@ VMLINUZ=$KDIR/root/boot/vmlinuz-$KVER
 IRD=$CACHE/initramfs
 rm -rf "$IRD" && mkdir -p "$IRD"/{bin,sbin,dev,proc,sys,tmp,etc,run,usr/bin} || die "$IRD: cannot create"
 cp /bin/busybox "$IRD/bin/busybox"
-for a in sh mount mkdir cat ls wc sleep grep sed awk head tail tr cut kill poweroff \
+for a in sh su usleep timeout uptime paste mount mkdir cat ls wc sleep grep sed awk head tail tr cut kill poweroff \
          modprobe rmmod insmod lsmod echo printf test seq date sort uniq rm dmesg readlink md5sum; do
     ln -sf busybox "$IRD/bin/$a"
 done
-printf 'root:x:0:0:root:/root:/bin/sh\n' > "$IRD/etc/passwd"
-printf 'root:x:0:\nvideo:x:44:\n' > "$IRD/etc/group"
+printf 'root:x:0:0:root:/root:/bin/sh\nnobody:x:65534:65534:nobody:/nonexistent:/bin/sh\n' > "$IRD/etc/passwd"
+printf 'root:x:0:\nvideo:x:44:\nnogroup:x:65534:\n' > "$IRD/etc/group"
 
 # vivid and the modules it needs, as modprobe on the host resolves them
 MODS=$(modprobe -d "$KDIR/root" -S "$KVER" --show-depends vivid | awk '$1=="insmod"{print $2}')
@@ -99,7 +99,7 @@ copy_with_libs "$IRD/usr/bin/vfcoach"
 ldd "$PROG" | grep -q 'libv4l2.so' || die "$PROG does not link libv4l2 dynamically (its multi-planar plugin would not load)"
 mkdir -p "$IRD/lib64" && cp -L /lib64/ld-linux-x86-64.so.2 "$IRD/lib64/"
 
-cp "$HERE/guest.sh" "$IRD/guest.sh"
+cp "${VM_GUEST:-$HERE/guest.sh}" "$IRD/guest.sh"   # VM_GUEST: another script, for trying things out
 cat > "$IRD/init" <<'EOF'
 #!/bin/sh
 mount -t proc proc /proc
@@ -121,7 +121,7 @@ OUT=$CACHE/guest.log
 KLOG=$CACHE/kernel.log
 rm -f "$OUT" "$KLOG"
 TQ=$(date +%s.%N)
-timeout --kill-after=5 "$TIMEOUT" qemu-system-x86_64 -accel tcg -cpu max -m 1024 -smp 1 \
+timeout --kill-after=5 "$TIMEOUT" qemu-system-x86_64 -accel tcg${VM_TCG_OPTS:-} -cpu ${VM_CPU:-max} -m 1024 -smp ${VM_SMP:-1} \
     -kernel "$VMLINUZ" -initrd "$CACHE/initramfs.cpio" \
     -append "console=ttyS0 panic=-1 loglevel=4 rdinit=/init" \
     -display none -monitor none -no-reboot \

@@ -1,0 +1,225 @@
+#!/bin/sh
+# Runs inside the qemu guest (busybox sh, no udev daemon), against the
+# kernel's vivid virtual camera.  Prints one PASS or FAIL line per check;
+# tests/vm/run.sh counts them.  Every wait is bounded.
+VF=/usr/bin/vfcoach
+T=/tmp
+
+now() { cut -d' ' -f1 /proc/uptime; }
+since() { awk -v a="$1" -v b="$(now)" 'BEGIN{printf "%.1f", b-a}'; }
+pass() { echo "PASS $*"; }
+fail() { echo "FAIL $*"; }
+nlines() { awk '/^\{/{n++} END{print n+0}' "$1" 2>/dev/null || echo 0; }
+# jnum KEY FILE: the values of a numeric JSON key, one per line
+jnum() { grep -o "\"$1\":[-0-9.e+]*" "$2" | cut -d: -f2; }
+mean() { awk '{s+=$1; n++} END{if(n) printf "%.4f", s/n; else print "nan"}'; }
+# wait_for CMD-TEST SECONDS: polls a shell test every 0.1 s
+wait_until() {
+    _deadline=$(awk -v a="$(now)" -v s="$2" 'BEGIN{print a+s}')
+    while ! eval "$1"; do
+        awk -v a="$(now)" -v d="$_deadline" 'BEGIN{exit !(a>d)}' && return 1
+        usleep 100000
+    done
+    return 0
+}
+
+echo "guest: kernel $(uname -r), $(grep -c ^processor /proc/cpuinfo) cpu"
+modprobe vivid || { fail "modprobe vivid"; exit 0; }
+wait_until '[ -e /dev/video0 ]' 5 || fail "vivid made no /dev/video0"
+MODE=single
+
+# ---- --list --------------------------------------------------------------
+check_list() {
+    t0=$(now)
+    $VF --list > $T/list.txt 2> $T/list.err
+    rc=$?
+    ok=1
+    for want in /dev/video0 vivid YUYV NV12 RGB3 640x480; do
+        grep -q -- "$want" $T/list.txt || { ok=0; echo "  --list lacks $want"; }
+    done
+    for nope in /dev/video1 /dev/video2 /dev/video3; do  # output and metadata nodes
+        grep -q "^$nope" $T/list.txt && { ok=0; echo "  --list shows non-capture node $nope"; }
+    done
+    if [ "$1" = multiplanar ]; then
+        grep -q "multi-planar" $T/list.txt || { ok=0; echo "  --list does not say multi-planar"; }
+    fi
+    if [ $rc = 0 ] && [ $ok = 1 ]; then
+        pass "list ($MODE): /dev/video0 with YUYV, NV12, RGB3 and 640x480; output/metadata nodes skipped ($(since $t0) s)"
+    else
+        fail "list ($MODE): rc=$rc"; head -n 30 $T/list.txt; cat $T/list.err
+    fi
+}
+
+# ---- headless capture in one pixel format ----------------------------------
+# capture LABEL FOURCC: 100 frames at 640x480, 25 fps
+capture() {
+    f=$T/cap-$MODE-$1.jsonl
+    t0=$(now)
+    timeout 90 $VF --headless --device "/dev/video0@$2" --frames 100 --size 640x480 --fps 25 > $f 2> $f.err
+    rc=$?
+    el=$(since $t0)
+    n=$(nlines $f)
+    jnum width $f > $T/w; jnum height $f > $T/h; jnum seq $f > $T/s; jnum t_capture $f > $T/t
+    sizes=$(paste -d x $T/w $T/h | sort -u | tr '\n' ' ')
+    ev=$(jnum exposure_ev $f | mean)
+    col=$(jnum colourfulness $f | mean)
+    # frame period from the driver's timestamps: (t_last - t_first) / (seq_last - seq_first)
+    per=$(paste -d' ' $T/s $T/t | awk 'NR==1{s0=$1;t0=$2} {s=$1;t=$2; if (NR>1 && (t<=pt||s<=ps)) bad=1; pt=t; ps=s}
+                                       END{if (bad||s==s0) print "nan"; else printf "%.4f", (t-t0)/(s-s0)}')
+    eval "EV_$1=$ev COL_$1=$col"
+    if [ $rc = 0 ] && [ "$n" -ge 100 ] && [ "$sizes" = "640x480 " ] &&
+       awk -v p="$per" -v e="$ev" -v c="$col" 'BEGIN{exit !(p>0.038 && p<0.042 && e>-3 && e<3 && c>10)}'; then
+        pass "capture $MODE $1: $n frames 640x480, driver timestamps every ${per} s (25 fps = 0.04), exposure_ev=$ev colourfulness=$col, ${el} s"
+    else
+        fail "capture $MODE $1: rc=$rc frames=$n sizes='$sizes' period=$per ev=$ev col=$col (${el} s)"
+        head -c 600 $f.err
+    fi
+}
+
+# The same scene in three pixel formats must measure the same: this is what
+# proves the driver's colour information (matrix, range) is honoured.
+same_scene() {
+    if awk -v a="$EV_YUYV" -v b="$EV_NV12" -v c="$EV_RGB24" -v x="$COL_YUYV" -v y="$COL_NV12" -v z="$COL_RGB24" '
+        function ab(v) { return v < 0 ? -v : v }
+        BEGIN { exit !(ab(a-c) < 0.1 && ab(b-c) < 0.1 && ab(x-z) < 0.1*z && ab(y-z) < 0.1*z) }'; then
+        pass "formats agree ($MODE): exposure_ev YUYV $EV_YUYV NV12 $EV_NV12 RGB24 $EV_RGB24; colourfulness $COL_YUYV $COL_NV12 $COL_RGB24"
+    else
+        fail "formats disagree ($MODE): exposure_ev YUYV $EV_YUYV NV12 $EV_NV12 RGB24 $EV_RGB24; colourfulness $COL_YUYV $COL_NV12 $COL_RGB24"
+    fi
+}
+
+# ---- bad devices: one line, non-zero exit ---------------------------------
+# bad LABEL EXPECTED-TEXT COMMAND...
+bad() {
+    label=$1; want=$2; shift 2
+    "$@" --headless --frames 5 > /dev/null 2> $T/bad.err
+    rc=$?
+    nl=$(grep -c . $T/bad.err)
+    if [ $rc != 0 ] && [ "$nl" = 1 ] && grep -q -- "$want" $T/bad.err; then
+        pass "bad device $label: exit $rc, one line: $(cat $T/bad.err)"
+    else
+        fail "bad device $label: exit $rc, $nl lines (wanted one with '$want'):"; cat $T/bad.err
+    fi
+}
+
+as_nobody() { su -s /bin/sh nobody -c "$*"; }
+
+# ---- live run with unplug and replug -----------------------------------------
+live_start() {
+    L=$T/live-$MODE.jsonl
+    $VF --headless --device /dev/video0 --size 640x480 --fps 25 > $L 2> $L.err &
+    LPID=$!
+    wait_until '[ "$(nlines $L)" -ge 10 ]' 30 || { fail "live run ($MODE) did not start"; cat $L.err; return 1; }
+}
+fds() { ls /proc/$LPID/fd | wc -l; }
+maps() { grep -c '/dev/video' /proc/$LPID/maps; }
+
+cycles() {
+    count=$1
+    fd0=$(fds); map0=$(maps); lost0=$(grep -c 'waiting for the same camera' $L.err); back0=$(grep -c 'camera back' $L.err)
+    t0=$(now)
+    ok=0
+    for i in $(seq 1 $count); do
+        n=$(nlines $L)
+        v4l2-ctl -d /dev/video0 -c disconnect=1 || { echo "  v4l2-ctl disconnect failed"; break; }
+        wait_until '[ "$(nlines $L)" -ge $((n + 3)) ]' 15 || { echo "  cycle $i: no frames after the replug"; break; }
+        kill -0 $LPID 2>/dev/null || { echo "  cycle $i: vfcoach exited"; break; }
+        ok=$i
+    done
+    el=$(since $t0)
+    fd1=$(fds); map1=$(maps)
+    lost=$(( $(grep -c 'waiting for the same camera' $L.err) - lost0 ))
+    back=$(( $(grep -c 'camera back' $L.err) - back0 ))
+    if [ $ok = $count ] && [ "$fd0" = "$fd1" ] && [ "$map0" = "$map1" ] && [ $lost = $count ] && [ $back = $count ]; then
+        pass "unplug/replug ($MODE, vivid disconnect): $ok cycles survived in ${el} s; open fds $fd0 before, $fd1 after; buffer mappings $map0/$map1; $lost 'lost' and $back 'back' lines"
+    else
+        fail "unplug/replug ($MODE): $ok of $count cycles; fds $fd0 -> $fd1; mappings $map0 -> $map1; lost lines $lost back lines $back (${el} s)"
+        tail -n 5 $L.err
+    fi
+}
+
+# A USB unplug removes the node; the camera may come back under another number.
+module_replug() {
+    fd0=$(fds); map0=$(maps)
+    n=$(nlines $L)
+    t0=$(now)
+    echo vivid.0 > /sys/bus/platform/drivers/vivid/unbind
+    wait_until '[ ! -e /dev/video0 ]' 5 || echo "  /dev/video0 still there after unbind"
+    # vfcoach must let go of the node before the module can go.
+    wait_until 'rmmod vivid 2>/dev/null' 10 || echo "  rmmod vivid kept failing (a descriptor still open?)"
+    modprobe vivid vid_cap_nr=5 $MPARAM
+    wait_until '[ "$(nlines $L)" -ge $((n + 5)) ]' 20
+    el=$(since $t0)
+    fd1=$(fds); map1=$(maps)
+    if [ "$(nlines $L)" -ge $((n + 5)) ] && [ -e /dev/video5 ] && [ "$fd0" = "$fd1" ] &&
+       [ "$map0" = "$map1" ] && grep -q 'video5).*camera back (it was' $L.err; then
+        pass "unplug/replug ($MODE, module removed and reloaded): back as /dev/video5 in ${el} s; fds $fd0/$fd1; $(grep 'camera back (it was' $L.err | tail -n1)"
+    else
+        fail "module replug ($MODE): frames $n -> $(nlines $L), nodes: $(ls /dev/video* | tr '\n' ' '); fds $fd0 -> $fd1; mappings $map0 -> $map1"
+        tail -n 5 $L.err
+    fi
+}
+
+live_stop() {
+    t0=$(now)
+    kill -INT $LPID
+    wait_until '! kill -0 $LPID 2>/dev/null' 10 && pass "stop ($MODE): vfcoach ended $(since $t0) s after SIGINT" ||
+        { fail "stop ($MODE): vfcoach still running 10 s after SIGINT"; kill -9 $LPID; }
+    wait $LPID 2>/dev/null
+}
+
+reload() { # module parameters
+    MPARAM="$*"
+    rmmod vivid 2>/dev/null
+    modprobe vivid $MPARAM || fail "modprobe vivid $MPARAM"
+    wait_until '[ -e /dev/video0 ]' 5 || fail "no /dev/video0 after modprobe vivid $MPARAM"
+}
+
+# ==== single-planar =========================================================
+MPARAM=
+check_list single
+capture YUYV YUYV
+capture NV12 NV12
+capture RGB24 RGB3
+same_scene
+
+bad "no such node" "no such device" $VF --device /dev/video9
+bad "/dev/null" "not a V4L2 video device" $VF --device /dev/null
+bad "a directory" "is a directory" $VF --device /tmp
+bad "output node /dev/video1" "without video capture" $VF --device /dev/video1
+bad "metadata node /dev/video2" "without video capture (metadata)" $VF --device /dev/video2
+bad "unknown name" "no camera by that" $VF --device "Studio Cam 9"
+bad "permission denied (uid 65534)" "permission denied" as_nobody $VF --device /dev/video0
+bad "pixel format not offered" "does not offer the pixel format" $VF --device /dev/video0@ZZZZ
+
+live_start && {
+    bad "busy (another vfcoach streams)" "busy" $VF --device /dev/video0
+    # default camera: no --device, first capture node (busy here, so its error shows, not the demo)
+    bad "default camera while busy" "/dev/video0: cannot set the format: busy" $VF
+    cycles 20
+    module_replug
+    live_stop
+}
+
+# default camera when free: the first capture node, by name as vivid calls it
+reload
+timeout 60 $VF --headless --frames 3 --size 640x480 --fps 25 > $T/def.jsonl 2> $T/def.err
+[ $? = 0 ] && [ "$(nlines $T/def.jsonl)" -ge 3 ] && pass "default camera: no --device streams /dev/video0" ||
+    { fail "default camera"; cat $T/def.err; }
+timeout 60 $VF --headless --frames 3 --device vivid --size 640x480 --fps 25 > $T/name.jsonl 2> $T/name.err
+[ $? = 0 ] && [ "$(nlines $T/name.jsonl)" -ge 3 ] && pass "camera by card name: --device vivid streams" ||
+    { fail "camera by card name"; cat $T/name.err; }
+
+# ==== multi-planar, through libv4l2's plugin ===================================
+MODE=multiplanar
+reload multiplanar=2
+check_list multiplanar
+capture YUYV YUYV
+capture NV12 NV12
+capture RGB24 RGB3
+same_scene
+live_start && {
+    cycles 2
+    live_stop
+}
+echo "guest: done"
