@@ -28,6 +28,10 @@ typedef struct app_opts {
     int mirror;              /* --mirror                                        */
     int tone;                /* --tone                                          */
     int stats;               /* --stats: window stats in JSON / on screen       */
+    /* added for the window and snapshots (h5): */
+    int snap_jpeg;           /* --jpeg: snapshots as JPEG instead of PNG        */
+    const char *show;        /* --show LIST: what the window shows at start (ovl_opts.show) */
+    const char *screenshot;  /* --screenshot FILE (hidden): save the window after --frames N (else 30), quit */
 } app_opts;
 
 /* Subcommands: argv[0] is the subcommand name. Return the exit status. */
@@ -85,5 +89,30 @@ int app_hook_start(app_hook *h, char *msg, size_t n);
 int app_hook_poll(app_hook *h, int *status, char *msg, size_t n);
 /* Is a run going on? */
 int app_hook_running(const app_hook *h);
+
+/* The live loop's snapshot and on-ready duties in one place. */
+typedef struct app_shots {
+    char dir[4096];          /* snapshot folder ("" when none could be found) */
+    int auto_snap;           /* --auto: one snapshot per ready period          */
+    int jpeg;
+    int pending;             /* a snapshot key was pressed: save the next frame */
+    int prev_ready;
+    app_hook *hook;          /* --on-ready, or NULL                            */
+    const char *source;      /* source name for the sidecar (borrowed)         */
+    char msg[1024];          /* the last line for the user                     */
+} app_shots;
+
+/* 0, or -EINVAL with a line in err (an --on-ready command that cannot be
+ * split).  source is borrowed for the life of s. */
+int app_shots_init(app_shots *s, const app_opts *o, const char *source, char *err, size_t errlen);
+void app_shots_fini(app_shots *s);
+/* Call after each analysed frame while the frame is still held: saves when
+ * a snapshot was asked for, or when the ready state is entered with --auto;
+ * starts --on-ready on entering ready.  Returns how many lines for the
+ * user it produced (the last one in s->msg; earlier ones went to stderr). */
+int app_shots_frame(app_shots *s, const coach_frame *f, const coach_result *r, coach_profile p);
+/* Call every loop turn: reaps the on-ready command without blocking.
+ * 1 when s->msg has a new line (its exit status). */
+int app_shots_poll(app_shots *s);
 
 #endif

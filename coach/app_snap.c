@@ -663,3 +663,69 @@ int app_hook_poll(app_hook *h, int *status, char *msg, size_t n)
         snprintf(msg, n, "on-ready: '%s' ended", h->argv[0]);
     return 1;
 }
+
+/* ---- the live loop's duties ------------------------------------------------------------ */
+
+int app_shots_init(app_shots *s, const app_opts *o, const char *source, char *err, size_t errlen)
+{
+    memset(s, 0, sizeof *s);
+    s->auto_snap = o->auto_snap;
+    s->jpeg = o->snap_jpeg;
+    s->source = source;
+    if (o->out_dir)
+        snprintf(s->dir, sizeof s->dir, "%s", o->out_dir);
+    else if (app_snap_default_dir(s->dir, sizeof s->dir))
+        s->dir[0] = 0;
+    if (o->on_ready) {
+        s->hook = app_hook_create(o->on_ready, err, errlen);
+        if (!s->hook)
+            return -EINVAL;
+    }
+    return 0;
+}
+
+void app_shots_fini(app_shots *s)
+{
+    if (!s)
+        return;
+    app_hook_destroy(s->hook);
+    s->hook = NULL;
+}
+
+static void say(app_shots *s, int *lines)
+{
+    if (*lines > 0)
+        fprintf(stderr, "vfcoach: %s\n", s->msg); /* the earlier line of this frame */
+    (*lines)++;
+}
+
+int app_shots_frame(app_shots *s, const coach_frame *f, const coach_result *r, coach_profile p)
+{
+    int lines = 0;
+    int rising = r->ready && !s->prev_ready;
+    s->prev_ready = r->ready;
+    if (s->pending || (rising && s->auto_snap)) {
+        s->pending = 0;
+        char path[4200], err[512];
+        if (!s->dir[0]) {
+            say(s, &lines);
+            snprintf(s->msg, sizeof s->msg, "snapshot: no folder (no HOME): give one with --out DIR");
+        } else if (app_snap_save(s->dir, f, r, p, s->source, s->jpeg, path, sizeof path, err, sizeof err)) {
+            say(s, &lines);
+            snprintf(s->msg, sizeof s->msg, "%s", err);
+        } else {
+            say(s, &lines);
+            snprintf(s->msg, sizeof s->msg, "Saved %.1000s", path);
+        }
+    }
+    if (rising && s->hook) {
+        say(s, &lines);
+        app_hook_start(s->hook, s->msg, sizeof s->msg);
+    }
+    return lines;
+}
+
+int app_shots_poll(app_shots *s)
+{
+    return s->hook ? app_hook_poll(s->hook, NULL, s->msg, sizeof s->msg) : 0;
+}

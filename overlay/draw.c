@@ -1,6 +1,8 @@
 /* Drawing primitives: layout of the frame in the window, crisp axis lines,
- * anti-aliased strokes through SDL_RenderGeometry, and the palette. */
+ * anti-aliased strokes rasterised into a tiled layer, and the palette. */
 #include <math.h>
+#include <stdlib.h>
+#include <string.h>
 
 #include "overlay/overlay_internal.h"
 
@@ -72,81 +74,41 @@ void ovl_fill(ovl_window *w, float x, float y, float rw, float rh, SDL_Color c)
     SDL_RenderFillRectF(w->ren, &r);
 }
 
-/* Axis lines are whole-pixel rectangles: no blur at any window size. */
-void ovl_hline(ovl_window *w, float x0, float x1, float y, int thick)
+/* Axis lines are whole-pixel rectangles: no blur at any window size.
+ * pass 1 draws the casing only, 2 the core only, 0 both. */
+void ovl_hline(ovl_window *w, float x0, float x1, float y, int thick, int pass)
 {
     float yy = floorf(y) - (float)(thick / 2);
-    ovl_fill(w, x0, yy - 1, x1 - x0, (float)thick + 2, ovl_casing);
-    ovl_fill(w, x0, yy, x1 - x0, (float)thick, ovl_ink);
+    if (pass != 2)
+        ovl_fill(w, x0, yy - 1, x1 - x0, (float)thick + 2, ovl_casing);
+    if (pass != 1)
+        ovl_fill(w, x0, yy, x1 - x0, (float)thick, ovl_ink);
 }
 
-void ovl_vline(ovl_window *w, float x, float y0, float y1, int thick)
+void ovl_vline(ovl_window *w, float x, float y0, float y1, int thick, int pass)
 {
     float xx = floorf(x) - (float)(thick / 2);
-    ovl_fill(w, xx - 1, y0, (float)thick + 2, y1 - y0, ovl_casing);
-    ovl_fill(w, xx, y0, (float)thick, y1 - y0, ovl_ink);
+    if (pass != 2)
+        ovl_fill(w, xx - 1, y0, (float)thick + 2, y1 - y0, ovl_casing);
+    if (pass != 1)
+        ovl_fill(w, xx, y0, (float)thick, y1 - y0, ovl_ink);
 }
 
-void ovl_batch_flush(ovl_window *w, ovl_batch *b)
+static void seg_add(ovl_window *w, ovl_seg *list, int *n, float x0, float y0, float x1, float y1, float width,
+                    SDL_Color c)
 {
-    if (b->ni > 0) {
-        SDL_SetRenderDrawBlendMode(w->ren, SDL_BLENDMODE_BLEND);
-        SDL_RenderGeometry(w->ren, NULL, b->v, b->nv, b->idx, b->ni);
-    }
-    b->nv = b->ni = 0;
-}
-
-static SDL_Vertex vtx(float x, float y, SDL_Color c, Uint8 a)
-{
-    SDL_Vertex v = {{x, y}, {c.r, c.g, c.b, a}, {0, 0}};
-    return v;
-}
-
-/* A quad core of the full width plus a one-pixel fringe on each side whose
- * alpha falls to zero: the edge coverage ramp that makes a thin diagonal
- * look smooth without multisampling. */
-void ovl_aaline(ovl_batch *b, float x0, float y0, float x1, float y1, float width, SDL_Color c)
-{
-    float dx = x1 - x0, dy = y1 - y0;
-    float len = sqrtf(dx * dx + dy * dy);
-    if (len < 1e-3f)
-        return;
-    if (b->nv + 8 > OVL_BATCH_V || b->ni + 18 > OVL_BATCH_I)
-        return; /* the caller flushes often enough; never overflow */
-    float nx = -dy / len, ny = dx / len;
-    float h = width * 0.5f - 0.5f;
-    if (h < 0)
-        h = 0;
-    float o = h + 1.0f;
-    /* extend ends by half a pixel so joined segments leave no gaps */
-    float ex = dx / len * 0.5f, ey = dy / len * 0.5f;
-    x0 -= ex; y0 -= ey; x1 += ex; y1 += ey;
-    int s = b->nv;
-    b->v[s + 0] = vtx(x0 + nx * o, y0 + ny * o, c, 0);
-    b->v[s + 1] = vtx(x0 + nx * h, y0 + ny * h, c, c.a);
-    b->v[s + 2] = vtx(x0 - nx * h, y0 - ny * h, c, c.a);
-    b->v[s + 3] = vtx(x0 - nx * o, y0 - ny * o, c, 0);
-    b->v[s + 4] = vtx(x1 + nx * o, y1 + ny * o, c, 0);
-    b->v[s + 5] = vtx(x1 + nx * h, y1 + ny * h, c, c.a);
-    b->v[s + 6] = vtx(x1 - nx * h, y1 - ny * h, c, c.a);
-    b->v[s + 7] = vtx(x1 - nx * o, y1 - ny * o, c, 0);
-    b->nv += 8;
-    static const int tri[18] = {0, 1, 4, 1, 5, 4, 1, 2, 5, 2, 6, 5, 2, 3, 6, 3, 7, 6};
-    for (int i = 0; i < 18; i++)
-        b->idx[b->ni++] = s + tri[i];
-}
-
-static void stroke_room(ovl_window *w)
-{
-    if (w->casing.nv + 8 > OVL_BATCH_V || w->core.nv + 8 > OVL_BATCH_V)
+    if (*n >= OVL_SEGS)
         ovl_strokes_flush(w);
+    list[(*n)++] = (ovl_seg){x0, y0, x1, y1, width * 0.5f, c};
 }
 
 void ovl_stroke_col(ovl_window *w, float x0, float y0, float x1, float y1, float width, SDL_Color c)
 {
-    stroke_room(w);
-    ovl_aaline(&w->casing, x0, y0, x1, y1, width + 2.0f, ovl_casing);
-    ovl_aaline(&w->core, x0, y0, x1, y1, width, c);
+    ovl_layer *l = &w->layer;
+    if (l->ncasing >= OVL_SEGS || l->ncore >= OVL_SEGS)
+        ovl_strokes_flush(w);
+    seg_add(w, l->casing, &l->ncasing, x0, y0, x1, y1, width + 2.0f, ovl_casing);
+    seg_add(w, l->core, &l->ncore, x0, y0, x1, y1, width, c);
 }
 
 void ovl_stroke(ovl_window *w, float x0, float y0, float x1, float y1, float width)
@@ -154,10 +116,159 @@ void ovl_stroke(ovl_window *w, float x0, float y0, float x1, float y1, float wid
     ovl_stroke_col(w, x0, y0, x1, y1, width, ovl_ink);
 }
 
+void ovl_stroke_plain(ovl_window *w, float x0, float y0, float x1, float y1, float width, SDL_Color c)
+{
+    seg_add(w, w->layer.core, &w->layer.ncore, x0, y0, x1, y1, width, c);
+}
+
+void ovl_layer_free(ovl_layer *l)
+{
+    if (l->tex)
+        SDL_DestroyTexture(l->tex);
+    free(l->px);
+    free(l->tile);
+    l->tex = NULL;
+    l->px = NULL;
+    l->tile = NULL;
+    l->w = l->h = 0;
+}
+
+/* Buffers follow the window size: reallocated on resize only. */
+static int layer_fit(ovl_window *w)
+{
+    ovl_layer *l = &w->layer;
+    if (l->px && l->w == w->ww && l->h == w->wh)
+        return 0;
+    ovl_layer_free(l);
+    l->w = w->ww;
+    l->h = w->wh;
+    l->tx = (l->w + OVL_TILE - 1) / OVL_TILE;
+    l->ty = (l->h + OVL_TILE - 1) / OVL_TILE;
+    l->px = calloc((size_t)l->w * l->h, sizeof(uint32_t));
+    l->tile = calloc((size_t)l->tx * l->ty, 1);
+    l->tex = SDL_CreateTexture(w->ren, SDL_PIXELFORMAT_ARGB8888, SDL_TEXTUREACCESS_STREAMING, l->w, l->h);
+    if (!l->px || !l->tile || !l->tex) {
+        ovl_layer_free(l);
+        return -1;
+    }
+    SDL_SetTextureBlendMode(l->tex, SDL_BLENDMODE_BLEND);
+    return 0;
+}
+
+/* Straight-alpha "over"; the same colour combines by maximum instead, so
+ * joints of a polyline (and crossings of one kind of line) do not darken. */
+static inline void put(uint32_t *p, SDL_Color c, float cov)
+{
+    unsigned sa = (unsigned)((float)c.a * cov + 0.5f);
+    if (!sa)
+        return;
+    uint32_t d = *p, rgb = ((uint32_t)c.r << 16) | ((uint32_t)c.g << 8) | c.b;
+    unsigned da = d >> 24;
+    if (!da || (d & 0xffffffu) == rgb) {
+        if (sa > da)
+            *p = ((uint32_t)sa << 24) | rgb;
+        return;
+    }
+    unsigned k = da * (255 - sa) / 255, oa = sa + k;
+    unsigned r = (c.r * sa + ((d >> 16) & 255) * k) / oa;
+    unsigned g = (c.g * sa + ((d >> 8) & 255) * k) / oa;
+    unsigned b = (c.b * sa + (d & 255) * k) / oa;
+    *p = ((uint32_t)oa << 24) | (r << 16) | (g << 8) | b;
+}
+
+/* Coverage of each pixel centre by a segment of half width r with round
+ * ends: clamp(r + 0.5 - distance, 0, 1), a one-pixel linear ramp. */
+static void raster(ovl_layer *l, const ovl_seg *s)
+{
+    float x0 = s->x0, y0 = s->y0, x1 = s->x1, y1 = s->y1, r = s->r;
+    float R = r + 0.5f;
+    float dx = x1 - x0, dy = y1 - y0, len2 = dx * dx + dy * dy;
+    float len = sqrtf(len2);
+    float nx = len > 1e-4f ? -dy / len : 0, ny = len > 1e-4f ? dx / len : 1;
+    int ya = (int)floorf(fminf(y0, y1) - R), yb = (int)ceilf(fmaxf(y0, y1) + R);
+    int bx0 = (int)floorf(fminf(x0, x1) - R), bx1 = (int)ceilf(fmaxf(x0, x1) + R);
+    if (ya < 0)
+        ya = 0;
+    if (yb > l->h - 1)
+        yb = l->h - 1;
+    if (bx0 < 0)
+        bx0 = 0;
+    if (bx1 > l->w - 1)
+        bx1 = l->w - 1;
+    for (int y = ya; y <= yb; y++) {
+        float cy = (float)y + 0.5f;
+        int xa = bx0, xb = bx1;
+        if (fabsf(nx) > 1e-3f) {
+            /* the band |(p - a) . n| <= R crosses this row in one interval */
+            float u0 = x0 + (-R - (cy - y0) * ny) / nx, u1 = x0 + (R - (cy - y0) * ny) / nx;
+            if (u0 > u1) {
+                float t = u0;
+                u0 = u1;
+                u1 = t;
+            }
+            int ia = (int)floorf(u0 - 0.5f), ib = (int)ceilf(u1);
+            if (ia > xa)
+                xa = ia;
+            if (ib < xb)
+                xb = ib;
+        }
+        if (xa > xb)
+            continue;
+        uint32_t *row = l->px + (size_t)y * l->w;
+        for (int x = xa; x <= xb; x++) {
+            float cx = (float)x + 0.5f;
+            float t = len2 > 0 ? ((cx - x0) * dx + (cy - y0) * dy) / len2 : 0;
+            t = t < 0 ? 0 : t > 1 ? 1 : t;
+            float ex = x0 + t * dx - cx, ey = y0 + t * dy - cy;
+            float cov = r + 0.5f - sqrtf(ex * ex + ey * ey);
+            if (cov <= 0)
+                continue;
+            put(row + x, s->c, cov > 1 ? 1 : cov);
+        }
+        uint8_t *tr = l->tile + (size_t)(y / OVL_TILE) * l->tx;
+        for (int t = xa / OVL_TILE; t <= xb / OVL_TILE; t++)
+            tr[t] = 1;
+    }
+}
+
 void ovl_strokes_flush(ovl_window *w)
 {
-    ovl_batch_flush(w, &w->casing);
-    ovl_batch_flush(w, &w->core);
+    ovl_layer *l = &w->layer;
+    if (!l->ncasing && !l->ncore)
+        return;
+    if (layer_fit(w)) {
+        l->ncasing = l->ncore = 0;
+        return;
+    }
+    for (int i = 0; i < l->ncasing; i++)
+        raster(l, &l->casing[i]);
+    for (int i = 0; i < l->ncore; i++)
+        raster(l, &l->core[i]);
+    l->ncasing = l->ncore = 0;
+    /* upload and blend runs of touched tiles, then clear them for next time */
+    for (int ty = 0; ty < l->ty; ty++) {
+        uint8_t *tr = l->tile + (size_t)ty * l->tx;
+        for (int tx = 0; tx < l->tx;) {
+            if (!tr[tx]) {
+                tx++;
+                continue;
+            }
+            int e = tx;
+            while (e < l->tx && tr[e])
+                tr[e++] = 0;
+            SDL_Rect rc = {tx * OVL_TILE, ty * OVL_TILE, (e - tx) * OVL_TILE, OVL_TILE};
+            if (rc.x + rc.w > l->w)
+                rc.w = l->w - rc.x;
+            if (rc.y + rc.h > l->h)
+                rc.h = l->h - rc.y;
+            uint32_t *p0 = l->px + (size_t)rc.y * l->w + rc.x;
+            SDL_UpdateTexture(l->tex, &rc, p0, l->w * 4);
+            SDL_RenderCopy(w->ren, l->tex, &rc, &rc);
+            for (int y = 0; y < rc.h; y++)
+                memset(p0 + (size_t)y * l->w, 0, (size_t)rc.w * 4);
+            tx = e;
+        }
+    }
 }
 
 void ovl_frame_rect(ovl_window *w, float x, float y, float rw, float rh, float width, SDL_Color c)

@@ -28,11 +28,14 @@ static void grid_lines(ovl_window *w, double a, double b)
 {
     int t = line_px(w);
     const SDL_FRect *r = &w->fr;
-    /* a and b are symmetric about 0.5, so mirroring leaves them in place. */
-    ovl_vline(w, r->x + (float)(a * r->w), r->y, r->y + r->h, t);
-    ovl_vline(w, r->x + (float)(b * r->w), r->y, r->y + r->h, t);
-    ovl_hline(w, r->x, r->x + r->w, r->y + (float)(a * r->h), t);
-    ovl_hline(w, r->x, r->x + r->w, r->y + (float)(b * r->h), t);
+    /* a and b are symmetric about 0.5, so mirroring leaves them in place;
+     * casings first so no line's edge cuts across another's core */
+    for (int pass = 1; pass <= 2; pass++) {
+        ovl_vline(w, r->x + (float)(a * r->w), r->y, r->y + r->h, t, pass);
+        ovl_vline(w, r->x + (float)(b * r->w), r->y, r->y + r->h, t, pass);
+        ovl_hline(w, r->x, r->x + r->w, r->y + (float)(a * r->h), t, pass);
+        ovl_hline(w, r->x, r->x + r->w, r->y + (float)(b * r->h), t, pass);
+    }
 }
 
 static void diagonals(ovl_window *w)
@@ -195,13 +198,13 @@ static void crop_mask(ovl_window *w)
     int t = line_px(w);
     float lo = (float)(-1 - t + t / 2), hi = (float)(1 + t / 2);
     if (c.x > r->x + 1)
-        ovl_vline(w, c.x + lo, c.y, c.y + c.h, t);
+        ovl_vline(w, c.x + lo, c.y, c.y + c.h, t, 0);
     if (c.x + c.w < r->x + r->w - 1)
-        ovl_vline(w, c.x + c.w + hi, c.y, c.y + c.h, t);
+        ovl_vline(w, c.x + c.w + hi, c.y, c.y + c.h, t, 0);
     if (c.y > r->y + 1)
-        ovl_hline(w, c.x, c.x + c.w, c.y + lo, t);
+        ovl_hline(w, c.x, c.x + c.w, c.y + lo, t, 0);
     if (c.y + c.h < r->y + r->h - 1)
-        ovl_hline(w, c.x, c.x + c.w, c.y + c.h + hi, t);
+        ovl_hline(w, c.x, c.x + c.w, c.y + c.h + hi, t, 0);
     int tw, th;
     const char *name = ovl_crop_name[w->crop];
     if (w->font && !ovl_text_size(w, w->font_small, name, &tw, &th)) {

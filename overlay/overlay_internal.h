@@ -66,16 +66,29 @@ typedef struct ovl_text {
     uint64_t used;        /* frame counter when last drawn: LRU eviction */
 } ovl_text_slot;
 
-/* ---- vertex batches for anti-aliased lines ------------------------------ */
+/* ---- strokes: anti-aliased lines we rasterise ourselves ------------------
+ * SDL's software renderer snaps geometry to whole pixels, so thin
+ * anti-aliased lines are computed here (coverage from the distance to the
+ * segment) into a window-sized layer, and only the 32x32 tiles they touch
+ * are uploaded and blended. */
 
-#define OVL_BATCH_V 12288
-#define OVL_BATCH_I (OVL_BATCH_V * 9 / 4)
+#define OVL_SEGS 4096
+#define OVL_TILE 32
 
-typedef struct ovl_batch {
-    SDL_Vertex v[OVL_BATCH_V];
-    int idx[OVL_BATCH_I];
-    int nv, ni;
-} ovl_batch;
+typedef struct ovl_seg {
+    float x0, y0, x1, y1, r;   /* ends and half width, window pixels */
+    SDL_Color c;
+} ovl_seg;
+
+typedef struct ovl_layer {
+    uint32_t *px;              /* w*h ARGB, straight alpha, 0 = clear     */
+    int w, h;
+    SDL_Texture *tex;
+    uint8_t *tile;             /* tiles touched since the last flush      */
+    int tx, ty;                /* tiles across and down                   */
+    ovl_seg casing[OVL_SEGS], core[OVL_SEGS]; /* dark edges first, then cores */
+    int ncasing, ncore;
+} ovl_layer;
 
 /* ---- the window ---------------------------------------------------------- */
 
@@ -94,14 +107,11 @@ struct ovl_window {
     SDL_Texture *frame_tex;
     Uint32 frame_fmt;
     int fw, fh;                /* frame size, pixels (0: none yet)        */
-    uint8_t *conv;             /* GREY -> XRGB conversion, fw*fh*4 bytes   */
-    size_t conv_cap;
     SDL_FRect fr;              /* where the frame is drawn                */
 
-    /* zebra / peaking mask */
-    SDL_Texture *mask_tex;
-    int mw, mh;                /* mask size, pixels                       */
-    uint32_t *mask;            /* mw*mh ARGB8888                          */
+    /* zebra / peaking marks, painted into the frame texture */
+    int mw, mh;                /* mask size, samples                      */
+    uint32_t *mask;            /* mw*mh colours, 0 = no mark              */
     size_t mask_cap;           /* pixels                                  */
     int *mask_sx;              /* source column of each mask column       */
     size_t mask_sx_cap;
@@ -124,7 +134,7 @@ struct ovl_window {
     int font_px;               /* size font was opened at, 0 none          */
     ovl_text_slot text[OVL_TEXT_SLOTS];
 
-    ovl_batch casing, core;    /* lines: dark edges first, then cores      */
+    ovl_layer layer;           /* anti-aliased strokes                     */
 
     /* score history for the sparkline */
     double spark_t[OVL_SPARK_N];
@@ -151,6 +161,7 @@ struct ovl_window {
     int shot_done;
     uint64_t frames;           /* frames shown (f != NULL)                 */
     uint64_t draws;            /* every ovl_draw                           */
+    double render_ms;          /* smoothed cost of ovl_render incl. present */
 };
 
 /* ---- window.c ------------------------------------------------------------- */
@@ -174,16 +185,18 @@ SDL_FRect ovl_crop_rect(const SDL_FRect *r, double ratio);
 void ovl_map(const ovl_window *w, double u, double v, float *x, float *y);
 
 void ovl_fill(ovl_window *w, float x, float y, float rw, float rh, SDL_Color c);
-/* A crisp axis-aligned guide line: a dark casing and a light core. */
-void ovl_hline(ovl_window *w, float x0, float x1, float y, int thick);
-void ovl_vline(ovl_window *w, float x, float y0, float y1, int thick);
-/* An anti-aliased line of the given width into a batch. */
-void ovl_aaline(ovl_batch *b, float x0, float y0, float x1, float y1, float width, SDL_Color c);
-/* A guide stroke: casing into w->casing, core into w->core. */
+/* A crisp axis-aligned guide line: a dark casing and a light core
+ * (pass 1: casing only, 2: core only, 0: both). */
+void ovl_hline(ovl_window *w, float x0, float x1, float y, int thick, int pass);
+void ovl_vline(ovl_window *w, float x, float y0, float y1, int thick, int pass);
+/* A guide stroke: a dark casing 2 px wider under a core of colour c. */
 void ovl_stroke(ovl_window *w, float x0, float y0, float x1, float y1, float width);
 void ovl_stroke_col(ovl_window *w, float x0, float y0, float x1, float y1, float width, SDL_Color c);
-void ovl_batch_flush(ovl_window *w, ovl_batch *b);
+/* A stroke without casing. */
+void ovl_stroke_plain(ovl_window *w, float x0, float y0, float x1, float y1, float width, SDL_Color c);
+/* Draws the strokes recorded so far (keeps drawing order with fills and text). */
 void ovl_strokes_flush(ovl_window *w);
+void ovl_layer_free(ovl_layer *l);
 /* Outline of a rectangle with anti-aliased strokes. */
 void ovl_frame_rect(ovl_window *w, float x, float y, float rw, float rh, float width, SDL_Color c);
 
@@ -211,8 +224,9 @@ void ovl_horizon_line(const ovl_window *w, double tilt_deg, double v, float *x0,
 
 /* Recomputes the zebra/peaking mask and the RGB histogram from a new frame. */
 void ovl_update_mask(ovl_window *w, const coach_frame *f);
+/* Paints the marks into a locked frame texture of f's layout. */
+void ovl_paint_mask(ovl_window *w, const coach_frame *f, void *pixels, int pitch);
 void ovl_update_hist_rgb(ovl_window *w, const coach_frame *f);
-void ovl_draw_mask(ovl_window *w);
 void ovl_draw_subject(ovl_window *w, const coach_result *r);
 void ovl_draw_hud(ovl_window *w, const coach_result *r, const ovl_status *st);
 void ovl_spark_push(ovl_window *w, double t, double score);

@@ -20,7 +20,7 @@ static inline int expand_limited(int y, const coach_frame *f)
     return v < 0 ? 0 : v > 255 ? 255 : v;
 }
 
-int ovl_luma_at(const coach_frame *f, int x, int y)
+static inline int luma_fast(const coach_frame *f, int x, int y)
 {
     const uint8_t *row = f->data + (size_t)y * (size_t)f->stride;
     const uint8_t *p;
@@ -35,6 +35,11 @@ int ovl_luma_at(const coach_frame *f, int x, int y)
     case COACH_FMT_GREY: return row[x];
     default: return 0;
     }
+}
+
+int ovl_luma_at(const coach_frame *f, int x, int y)
+{
+    return luma_fast(f, x, y);
 }
 
 /* ---- zebras and peaking -------------------------------------------------- */
@@ -53,37 +58,35 @@ static int grow(void **p, size_t *cap, size_t need, size_t elem)
 
 static Uint32 argb(SDL_Color c)
 {
-    return ((Uint32)c.a << 24) | ((Uint32)c.r << 16) | ((Uint32)c.g << 8) | c.b;
+    return 0xff000000u | ((Uint32)c.r << 16) | ((Uint32)c.g << 8) | c.b;
 }
 
+/* The marks are computed on a grid of at most OVL_MASK_MAX_PX samples over
+ * the frame (display resolution or an integer fraction of it) and painted
+ * into the frame texture as it is filled, each over the block of source
+ * pixels its sample stands for: no extra full-window blend pass, which is
+ * what a software renderer cannot afford at 30 fps. */
 void ovl_update_mask(ovl_window *w, const coach_frame *f)
 {
     w->mask_valid = 0;
-    if (!(w->zebras || w->peaking) || !f || !f->data || f->w < 3 || f->h < 3)
+    if (!(w->zebras || w->peaking) || !f || !f->data || f->w < 4 || f->h < 4)
         return;
     int dw = (int)w->fr.w, dh = (int)w->fr.h;
     if (dw < 1 || dh < 1)
         return;
-    /* Display resolution, or an integer fraction of it within the budget:
-     * each mask pixel then covers k x k screen pixels exactly. */
     int k = 1;
     while ((long)(dw / k) * (dh / k) > OVL_MASK_MAX_PX)
         k++;
     int mw = (dw + k - 1) / k, mh = (dh + k - 1) / k;
+    if (mw > f->w)
+        mw = f->w;
+    if (mh > f->h)
+        mh = f->h;
     if (grow((void **)&w->mask, &w->mask_cap, (size_t)mw * mh, sizeof(uint32_t)) ||
-        grow((void **)&w->mask_sx, &w->mask_sx_cap, (size_t)mw, sizeof(int)))
+        grow((void **)&w->mask_sx, &w->mask_sx_cap, (size_t)mw + 1, sizeof(int)))
         return;
-    if (!w->mask_tex || w->mw != mw || w->mh != mh) {
-        if (w->mask_tex)
-            SDL_DestroyTexture(w->mask_tex);
-        w->mask_tex = SDL_CreateTexture(w->ren, SDL_PIXELFORMAT_ARGB8888, SDL_TEXTUREACCESS_STREAMING, mw, mh);
-        if (!w->mask_tex)
-            return;
-        SDL_SetTextureBlendMode(w->mask_tex, SDL_BLENDMODE_BLEND);
-        SDL_SetTextureScaleMode(w->mask_tex, SDL_ScaleModeNearest);
-        w->mw = mw;
-        w->mh = mh;
-    }
+    w->mw = mw;
+    w->mh = mh;
     int fw = f->w, fh = f->h;
     for (int x = 0; x < mw; x++) {
         int sx = (int)(((double)x + 0.5) * fw / mw);
@@ -93,28 +96,30 @@ void ovl_update_mask(ovl_window *w, const coach_frame *f)
      * central differences so an edge between samples is not missed. */
     int two = fw > mw * 3 / 2;
     Uint32 zc = argb(ovl_zebra), pc = argb(ovl_peak[w->peak_colour % OVL_PEAK_COLOURS]);
-    /* Stripes 45 degrees, about 6 screen pixels wide, drifting slowly so
+    /* Stripes at 45 degrees, about 6 screen pixels wide, drifting slowly so
      * they are not taken for scene texture (common practice). */
     int period = 12 / k < 4 ? 4 : 12 / k;
     int phase = (int)(w->frames / 2 % (uint64_t)period);
-    int thr = w->peak_threshold;
+    int thr = w->peak_threshold, zeb = w->zebras, peak = w->peaking;
     for (int y = 0; y < mh; y++) {
         int sy = (int)(((double)y + 0.5) * fh / mh);
         if (sy >= fh)
             sy = fh - 1;
         uint32_t *out = w->mask + (size_t)y * mw;
         int ycore = sy > 0 && sy < fh - 2;
+        int zrow = (y + phase) % period;
         for (int x = 0; x < mw; x++) {
             int sx = w->mask_sx[x];
             uint32_t o = 0;
-            if (w->zebras && ((x + y + phase) % period) < period / 2 && ovl_luma_at(f, sx, sy) >= 250)
+            int l = luma_fast(f, sx, sy);
+            if (zeb && l >= 250 && (x + zrow) % period < period / 2)
                 o = zc;
-            if (w->peaking && ycore && sx > 0 && sx < fw - 2) {
-                int gx = abs(ovl_luma_at(f, sx + 1, sy) - ovl_luma_at(f, sx - 1, sy));
-                int gy = abs(ovl_luma_at(f, sx, sy + 1) - ovl_luma_at(f, sx, sy - 1));
-                if (two) {
-                    int gx2 = abs(ovl_luma_at(f, sx + 2, sy) - ovl_luma_at(f, sx, sy));
-                    int gy2 = abs(ovl_luma_at(f, sx, sy + 2) - ovl_luma_at(f, sx, sy));
+            if (peak && ycore && sx > 0 && sx < fw - 2) {
+                int gx = abs(luma_fast(f, sx + 1, sy) - luma_fast(f, sx - 1, sy));
+                int gy = abs(luma_fast(f, sx, sy + 1) - luma_fast(f, sx, sy - 1));
+                if (two && gx + gy < thr) {
+                    int gx2 = abs(luma_fast(f, sx + 2, sy) - l);
+                    int gy2 = abs(luma_fast(f, sx, sy + 2) - l);
                     gx = gx > gx2 ? gx : gx2;
                     gy = gy > gy2 ? gy : gy2;
                 }
@@ -124,23 +129,90 @@ void ovl_update_mask(ovl_window *w, const coach_frame *f)
             out[x] = o;
         }
     }
-    SDL_UpdateTexture(w->mask_tex, NULL, w->mask, mw * 4);
     w->mask_valid = 1;
 }
 
-void ovl_draw_mask(ovl_window *w)
+/* Y'CbCr of an sRGB colour for painting into camera textures (ITU-R
+ * BT.601-7 / BT.709-6 matrices; narrow range 16-235 / 16-240). */
+static void to_ycc(Uint32 c, const coach_frame *f, uint8_t *y, uint8_t *cb, uint8_t *cr)
 {
-    if (!w->mask_valid || !w->mask_tex || !(w->zebras || w->peaking))
+    double r = (c >> 16) & 255, g = (c >> 8) & 255, b = c & 255;
+    double kr = f->matrix == COACH_MATRIX_BT709 ? 0.2126 : 0.299;
+    double kb = f->matrix == COACH_MATRIX_BT709 ? 0.0722 : 0.114;
+    double Y = kr * r + (1 - kr - kb) * g + kb * b;
+    double Cb = (b - Y) / (2 * (1 - kb)), Cr = (r - Y) / (2 * (1 - kr));
+    if (f->range != COACH_RANGE_FULL) {
+        Y = 16 + Y * 219.0 / 255.0;
+        Cb *= 224.0 / 255.0;
+        Cr *= 224.0 / 255.0;
+    }
+    *y = (uint8_t)lround(Y);
+    *cb = (uint8_t)lround(128 + Cb);
+    *cr = (uint8_t)lround(128 + Cr);
+}
+
+void ovl_paint_mask(ovl_window *w, const coach_frame *f, void *pixels, int pitch)
+{
+    if (!w->mask_valid)
         return;
-    SDL_Rect src = {0, 0, w->mw, w->mh};
-    int k = (int)ceilf(w->fr.w / (float)w->mw);
-    SDL_FRect dst = {w->fr.x, w->fr.y, (float)(w->mw * k), (float)(w->mh * k)};
-    /* The last mask column/row may overhang the frame by < k pixels. */
-    SDL_RenderSetClipRect(w->ren, &(SDL_Rect){(int)w->fr.x, (int)w->fr.y, (int)w->fr.w, (int)w->fr.h});
-    if (w->mirror)
-        dst.x = w->fr.x + w->fr.w - dst.w;
-    SDL_RenderCopyExF(w->ren, w->mask_tex, &src, &dst, 0, NULL, w->mirror ? SDL_FLIP_HORIZONTAL : SDL_FLIP_NONE);
-    SDL_RenderSetClipRect(w->ren, NULL);
+    int fw = f->w, fh = f->h, mw = w->mw, mh = w->mh;
+    uint8_t *base = pixels;
+    uint8_t *uvbase = base + (size_t)pitch * fh; /* NV12: chroma after luma */
+    int uvpitch = (pitch + 1) & ~1;
+    for (int my = 0; my < mh; my++) {
+        const uint32_t *m = w->mask + (size_t)my * mw;
+        int y0 = (int)((long)my * fh / mh), y1 = (int)((long)(my + 1) * fh / mh);
+        for (int mx = 0; mx < mw; mx++) {
+            Uint32 c = m[mx];
+            if (!c)
+                continue;
+            int x0 = (int)((long)mx * fw / mw), x1 = (int)((long)(mx + 1) * fw / mw);
+            uint8_t Y = 0, U = 0, V = 0;
+            if (f->format == COACH_FMT_YUYV || f->format == COACH_FMT_NV12)
+                to_ycc(c, f, &Y, &U, &V);
+            for (int y = y0; y < y1; y++) {
+                uint8_t *row = base + (size_t)y * pitch;
+                switch (f->format) {
+                case COACH_FMT_XRGB8888:
+                case COACH_FMT_GREY:
+                    for (int x = x0; x < x1; x++)
+                        ((uint32_t *)row)[x] = c;
+                    break;
+                case COACH_FMT_RGB24:
+                case COACH_FMT_BGR24: {
+                    uint8_t r = (uint8_t)(c >> 16), g = (uint8_t)(c >> 8), b = (uint8_t)c;
+                    if (f->format == COACH_FMT_BGR24) {
+                        uint8_t t = r;
+                        r = b;
+                        b = t;
+                    }
+                    for (int x = x0; x < x1; x++) {
+                        row[3 * x] = r;
+                        row[3 * x + 1] = g;
+                        row[3 * x + 2] = b;
+                    }
+                    break;
+                }
+                case COACH_FMT_YUYV:
+                    for (int x = x0; x < x1; x++) {
+                        row[2 * x] = Y;
+                        row[4 * (x >> 1) + 1] = U;
+                        row[4 * (x >> 1) + 3] = V;
+                    }
+                    break;
+                case COACH_FMT_NV12:
+                    for (int x = x0; x < x1; x++) {
+                        row[x] = Y;
+                        uint8_t *uv = uvbase + (size_t)(y >> 1) * uvpitch + (x & ~1);
+                        uv[0] = U;
+                        uv[1] = V;
+                    }
+                    break;
+                default: break;
+                }
+            }
+        }
+    }
 }
 
 /* ---- RGB histogram ------------------------------------------------------- */
@@ -369,7 +441,7 @@ static void meter(ovl_window *w, const coach_result *r)
             double v = w->spark_s[j] < 0 ? 0 : w->spark_s[j] > 100 ? 100 : w->spark_s[j];
             float qy = sy + spark_h * (float)(1.0 - v / 100.0);
             if (have && qx - px >= 1.0f) {
-                ovl_aaline(&w->core, px, py, qx, qy, 1.6f, ovl_ink);
+                ovl_stroke_plain(w, px, py, qx, qy, 1.6f, ovl_ink);
                 px = qx;
                 py = qy;
             } else if (!have) {
@@ -377,10 +449,8 @@ static void meter(ovl_window *w, const coach_result *r)
                 py = qy;
                 have = 1;
             }
-            if (w->core.nv + 8 > OVL_BATCH_V)
-                ovl_batch_flush(w, &w->core);
         }
-        ovl_batch_flush(w, &w->core);
+        ovl_strokes_flush(w);
     }
     ovl_text(w, w->font_small, "last 10 s", bx + bw, sy + spark_h + 2, 2, ovl_dimtext);
 }
@@ -425,7 +495,8 @@ static float label_and_stats(ovl_window *w, const ovl_status *st)
     if (w->stats && st) {
         snprintf(l[lines++], sizeof l[0], "%.1f fps shown · %llu dropped", st->fps_shown,
                  (unsigned long long)st->dropped);
-        snprintf(l[lines++], sizeof l[0], "capture → screen %.0f ms · %s", st->latency_ms, w->renderer_name);
+        snprintf(l[lines++], sizeof l[0], "capture → screen %.0f ms · drawing %.1f ms (%s)", st->latency_ms,
+                 w->render_ms, w->renderer_name);
     }
     if (!lines)
         return y;

@@ -180,6 +180,42 @@ static void update_size(ovl_window *w)
     }
 }
 
+/* Is the current OpenGL context drawn by a CPU rasteriser (Mesa's
+ * llvmpipe/softpipe/swrast)?  Then SDL's own software renderer, presenting
+ * through X11 shared memory, is the faster path. */
+static int gl_on_cpu(void)
+{
+    typedef const unsigned char *(*get_string_fn)(unsigned);
+    get_string_fn get = (get_string_fn)SDL_GL_GetProcAddress("glGetString");
+    if (!get || !SDL_GL_GetCurrentContext())
+        return 0;
+    const char *r = (const char *)get(0x1F01u); /* GL_RENDERER */
+    return r && (strstr(r, "llvmpipe") || strstr(r, "softpipe") || strstr(r, "Software Rasterizer") ||
+                 strstr(r, "swrast"));
+}
+
+static SDL_Renderer *software_renderer(SDL_Window *win)
+{
+    /* Present the software renderer's surface straight to the window, not
+     * through another (GL) renderer; the environment still overrides. */
+    SDL_SetHintWithPriority(SDL_HINT_FRAMEBUFFER_ACCELERATION, "0", SDL_HINT_DEFAULT);
+    return SDL_CreateRenderer(win, -1, SDL_RENDERER_SOFTWARE);
+}
+
+static SDL_Renderer *make_renderer(SDL_Window *win)
+{
+    const char *want = SDL_GetHint(SDL_HINT_RENDER_DRIVER);
+    if (want && !strcmp(want, "software"))
+        return software_renderer(win);
+    SDL_Renderer *r = SDL_CreateRenderer(win, -1, 0);
+    SDL_RendererInfo info;
+    if (r && !want && SDL_GetRendererInfo(r, &info) == 0 && !strncmp(info.name, "opengl", 6) && gl_on_cpu()) {
+        SDL_DestroyRenderer(r);
+        r = NULL;
+    }
+    return r ? r : software_renderer(win);
+}
+
 ovl_window *ovl_create(const ovl_opts *o, char *err, size_t errlen)
 {
     char dummy[8];
@@ -263,9 +299,7 @@ ovl_window *ovl_create(const ovl_opts *o, char *err, size_t errlen)
         goto fail;
     }
     SDL_SetWindowMinimumSize(w->win, 320, 200);
-    w->ren = SDL_CreateRenderer(w->win, -1, 0);
-    if (!w->ren)
-        w->ren = SDL_CreateRenderer(w->win, -1, SDL_RENDERER_SOFTWARE);
+    w->ren = make_renderer(w->win);
     if (!w->ren) {
         snprintf(err, errlen, "window: no renderer: %s", SDL_GetError());
         goto fail;
@@ -301,15 +335,13 @@ void ovl_destroy(ovl_window *w)
         SDL_CloseAudioDevice(w->audio);
     free(w->tone_buf);
     ovl_fonts_close(w);
-    if (w->mask_tex)
-        SDL_DestroyTexture(w->mask_tex);
+    ovl_layer_free(&w->layer);
     if (w->frame_tex)
         SDL_DestroyTexture(w->frame_tex);
     if (w->ren)
         SDL_DestroyRenderer(w->ren);
     if (w->win)
         SDL_DestroyWindow(w->win);
-    free(w->conv);
     free(w->mask);
     free(w->mask_sx);
     free(w);
@@ -325,11 +357,13 @@ static Uint32 sdl_format(coach_format f)
     case COACH_FMT_BGR24: return SDL_PIXELFORMAT_BGR24;
     case COACH_FMT_YUYV: return SDL_PIXELFORMAT_YUY2;
     case COACH_FMT_NV12: return SDL_PIXELFORMAT_NV12;
-    case COACH_FMT_GREY: return SDL_PIXELFORMAT_XRGB8888; /* expanded in w->conv */
+    case COACH_FMT_GREY: return SDL_PIXELFORMAT_XRGB8888; /* expanded while copying */
     default: return SDL_PIXELFORMAT_UNKNOWN;
     }
 }
 
+/* Copies the frame into the streaming texture (rows may be padded on
+ * either side) and paints the zebra/peaking marks on the way. */
 static int upload(ovl_window *w, const coach_frame *f)
 {
     Uint32 fmt = sdl_format(f->format);
@@ -346,16 +380,6 @@ static int upload(ovl_window *w, const coach_frame *f)
         w->frame_fmt = fmt;
         w->fw = f->w;
         w->fh = f->h;
-        if (f->format == COACH_FMT_GREY) {
-            size_t need = (size_t)f->w * f->h * 4;
-            if (need > w->conv_cap) {
-                free(w->conv);
-                w->conv = malloc(need);
-                w->conv_cap = w->conv ? need : 0;
-                if (!w->conv)
-                    return -ENOMEM;
-            }
-        }
     }
     if (f->format == COACH_FMT_YUYV || f->format == COACH_FMT_NV12) {
         /* SDL2 knows full range only for BT.601 ("JPEG"); BT.709 full range
@@ -364,20 +388,39 @@ static int upload(ovl_window *w, const coach_frame *f)
                                  : f->matrix == COACH_MATRIX_BT709 ? SDL_YUV_CONVERSION_BT709
                                                                    : SDL_YUV_CONVERSION_BT601);
     }
-    if (f->format == COACH_FMT_NV12) {
-        const uint8_t *uv = f->data2 ? f->data2 : f->data + (size_t)f->stride * f->h;
-        return SDL_UpdateNVTexture(w->frame_tex, NULL, f->data, f->stride, uv, f->stride2 ? f->stride2 : f->stride);
-    }
+    void *pix;
+    int pitch;
+    if (SDL_LockTexture(w->frame_tex, NULL, &pix, &pitch) != 0)
+        return -EIO;
+    uint8_t *dst = pix;
+    int h = f->h;
     if (f->format == COACH_FMT_GREY) {
-        for (int y = 0; y < f->h; y++) {
+        for (int y = 0; y < h; y++) {
             const uint8_t *s = f->data + (size_t)y * f->stride;
-            uint32_t *d = (uint32_t *)(w->conv + (size_t)y * f->w * 4);
+            uint32_t *d = (uint32_t *)(dst + (size_t)y * pitch);
             for (int x = 0; x < f->w; x++)
                 d[x] = 0xff000000u | (uint32_t)s[x] * 0x010101u;
         }
-        return SDL_UpdateTexture(w->frame_tex, NULL, w->conv, f->w * 4);
+    } else {
+        size_t row = (size_t)f->w * (size_t)coach_format_bpp(f->format);
+        if (f->format == COACH_FMT_NV12)
+            row = (size_t)f->w;
+        for (int y = 0; y < h; y++)
+            memcpy(dst + (size_t)y * pitch, f->data + (size_t)y * f->stride, row);
+        if (f->format == COACH_FMT_NV12) {
+            const uint8_t *uv = f->data2 ? f->data2 : f->data + (size_t)f->stride * h;
+            int s2 = f->stride2 ? f->stride2 : f->stride;
+            int uvpitch = (pitch + 1) & ~1;
+            uint8_t *d2 = dst + (size_t)pitch * h;
+            size_t uvrow = (size_t)((f->w + 1) & ~1);
+            for (int y = 0; y < (h + 1) / 2; y++)
+                memcpy(d2 + (size_t)y * uvpitch, uv + (size_t)y * s2, uvrow);
+        }
     }
-    return SDL_UpdateTexture(w->frame_tex, NULL, f->data, f->stride);
+    ovl_update_mask(w, f);
+    ovl_paint_mask(w, f, pix, pitch);
+    SDL_UnlockTexture(w->frame_tex);
+    return 0;
 }
 
 /* ---- help ------------------------------------------------------------------------------ */
@@ -425,6 +468,8 @@ int ovl_draw(ovl_window *w, const cap_frame *f, const coach_result *r, const ovl
     if (ovl_fonts_open(w, NULL, 0))
         return -ENOENT;
     if (f) {
+        /* the frame's place first: the marks are sampled at display size */
+        w->fr = ovl_fit_rect(f->view.w, f->view.h, w->ww, w->wh);
         int rc = upload(w, &f->view);
         if (rc)
             return rc;
@@ -444,17 +489,16 @@ int ovl_draw(ovl_window *w, const cap_frame *f, const coach_result *r, const ovl
         r = &w->last;
     }
     w->fr = ovl_fit_rect(w->fw, w->fh, w->ww, w->wh);
-    if (f) {
-        ovl_update_mask(w, &f->view);
+    if (f)
         ovl_update_hist_rgb(w, &f->view);
-    }
 
     SDL_SetRenderDrawColor(w->ren, 8, 9, 12, 255);
     SDL_RenderClear(w->ren);
     if (w->frame_tex && w->fw > 0) {
-        SDL_RenderCopyExF(w->ren, w->frame_tex, NULL, &w->fr, 0, NULL,
-                          w->mirror ? SDL_FLIP_HORIZONTAL : SDL_FLIP_NONE);
-        ovl_draw_mask(w);
+        if (w->mirror)
+            SDL_RenderCopyExF(w->ren, w->frame_tex, NULL, &w->fr, 0, NULL, SDL_FLIP_HORIZONTAL);
+        else
+            SDL_RenderCopyF(w->ren, w->frame_tex, NULL, &w->fr);
         ovl_draw_guides(w, r);
         ovl_draw_subject(w, r);
     }
@@ -495,12 +539,16 @@ static void screenshot(ovl_window *w)
 
 int ovl_render(ovl_window *w, const cap_frame *f, const coach_result *r, const ovl_status *st)
 {
+    Uint64 t0 = SDL_GetPerformanceCounter();
     int rc = ovl_draw(w, f, r, st);
     if (rc)
         return rc;
     if (w->shot_path[0] && !w->shot_done && (long)w->frames >= w->shot_after)
         screenshot(w);
     SDL_RenderPresent(w->ren);
+    double ms = (double)(SDL_GetPerformanceCounter() - t0) * 1000.0 / (double)SDL_GetPerformanceFrequency();
+    /* shown with the stats: what the window itself costs per frame */
+    w->render_ms = w->render_ms > 0 ? 0.9 * w->render_ms + 0.1 * ms : ms;
     return 0;
 }
 
