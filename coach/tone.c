@@ -64,6 +64,7 @@ struct coach_tone {
     uint16_t *acc;             /* 4 * cap_w: block column sums r, g, b, y */
     int32_t *accl;             /* block column sums of L                  */
     int32_t *accq;             /* block column sums of L^2                */
+    int32_t *tmp;              /* one row of block sums                   */
     float *planes;             /* 6 * cap_plane: luma, r, g, b, lap, lap_sq */
     uint32_t hist8[8][256];    /* 8 interleaved histograms: runs of one value do
                                   not serialise on store forwarding */
@@ -92,11 +93,12 @@ static void free_bufs(coach_tone *t)
     free(t->acc);
     free(t->accl);
     free(t->accq);
+    free(t->tmp);
     free(t->planes);
     t->r = t->ring = NULL;
     t->lap = NULL;
     t->acc = NULL;
-    t->accl = t->accq = NULL;
+    t->accl = t->accq = t->tmp = NULL;
     t->planes = NULL;
     t->cap_w = 0;
     t->cap_plane = 0;
@@ -112,6 +114,7 @@ static int grow_rows(coach_tone *t, int w)
     free(t->acc);
     free(t->accl);
     free(t->accq);
+    free(t->tmp);
     size_t W = (size_t)w + 64; /* slack: loops may read a little past w */
     t->r = xalloc(3 * W);
     t->ring = xalloc(3 * W);
@@ -119,7 +122,8 @@ static int grow_rows(coach_tone *t, int w)
     t->acc = xalloc(4 * W * sizeof(uint16_t));
     t->accl = xalloc(W * sizeof(int32_t));
     t->accq = xalloc(W * sizeof(int32_t));
-    if (!t->r || !t->ring || !t->lap || !t->acc || !t->accl || !t->accq) {
+    t->tmp = xalloc(W * sizeof(int32_t));
+    if (!t->r || !t->ring || !t->lap || !t->acc || !t->accl || !t->accq || !t->tmp) {
         free_bufs(t);
         return -ENOMEM;
     }
@@ -454,12 +458,14 @@ VEC static void acc_colour(uint16_t *restrict acc, const uint8_t *restrict r,
         const T *a = acc + (size_t)ax * (S);                                  \
         for (int i = 0; i < (S); i++)                                         \
             s += a[i];                                                        \
-        out[ax] = (float)((double)s * k);                                     \
+        tmp[ax] = s;                                                          \
     }
 
+/* Integer sums first, then one vectorised int -> float scaling pass: a
+ * conversion per output in the summing loop cost more than the sums. */
 #define FLUSH_FN(NAME, T, ACC_T)                                                \
-    static void NAME(const T *restrict acc, int scale, int aw, double k,      \
-                     float *restrict out)                                     \
+    static void NAME(const T *restrict acc, int scale, int aw, float k,       \
+                     ACC_T *restrict tmp, float *restrict out)                \
     {                                                                         \
         switch (scale) {                                                      \
         case 1: FLUSH_BODY(T, ACC_T, 1) break;                                \
@@ -471,10 +477,15 @@ VEC static void acc_colour(uint16_t *restrict acc, const uint8_t *restrict r,
         case 12: FLUSH_BODY(T, ACC_T, 12) break;                              \
         default: FLUSH_BODY(T, ACC_T, scale) break;                           \
         }                                                                     \
+        for (int ax = 0; ax < aw; ax++)                                       \
+            out[ax] = (float)tmp[ax] * k;                                     \
     }
 
-FLUSH_FN(flush_u16, uint16_t, uint32_t)
-FLUSH_FN(flush_i32, int32_t, int64_t)
+/* Block sums: colour and L fit int32; L^2 needs uint32 (up to
+ * (16384 / 320)^2 pixels of at most 1020^2 = 2.7e9). */
+FLUSH_FN(flush_u16, uint16_t, int32_t)
+FLUSH_FN(flush_i32, int32_t, int32_t)
+FLUSH_FN(flush_u32, uint32_t, uint32_t)
 
 /* Laplacian [0 1 0; 1 -4 1; 0 1 0] of row c with the rows above (u) and
  * below (d), reflect-101 at the left and right ends. */
@@ -558,7 +569,8 @@ int coach_tone_run(coach_tone *t, const coach_frame *f, coach_result *out, coach
     float *pl_y = t->planes, *pl_r = pl_y + P, *pl_g = pl_r + P, *pl_b = pl_g + P;
     float *pl_l = pl_b + P, *pl_q = pl_l + P;
     const int bw = aw * scale, bh = ah * scale; /* part covered by blocks */
-    const double kblk = 1.0 / ((double)scale * scale);
+    const float kblk = 1.0f / (float)(scale * scale);
+    int32_t *tmp = t->tmp;
     const int grey = f->format == COACH_FMT_GREY;
     const yuv_coef yc = yuv_coefs(f->matrix, f->range);
     const uint8_t *plane2 = f->data2 ? f->data2 : f->data + (size_t)f->stride * h;
@@ -613,10 +625,10 @@ int coach_tone_run(coach_tone *t, const coach_frame *f, coach_result *out, coach
             }
             if (y < bh && y % scale == scale - 1) {
                 size_t o = (size_t)(y / scale) * aw;
-                flush_u16(t->acc, scale, aw, kblk, pl_r + o);
-                flush_u16(t->acc + W, scale, aw, kblk, pl_g + o);
-                flush_u16(t->acc + 2 * W, scale, aw, kblk, pl_b + o);
-                flush_u16(t->acc + 3 * W, scale, aw, kblk, pl_y + o);
+                flush_u16(t->acc, scale, aw, kblk, tmp, pl_r + o);
+                flush_u16(t->acc + W, scale, aw, kblk, tmp, pl_g + o);
+                flush_u16(t->acc + 2 * W, scale, aw, kblk, tmp, pl_b + o);
+                flush_u16(t->acc + 3 * W, scale, aw, kblk, tmp, pl_y + o);
             }
         }
         if (y == 0)
@@ -634,8 +646,8 @@ int coach_tone_run(coach_tone *t, const coach_frame *f, coach_result *out, coach
             int yb = ly % scale;
             if (yb == scale - 1) {
                 size_t o = (size_t)(ly / scale) * aw;
-                flush_i32(t->accl, scale, aw, kblk, pl_l + o);
-                flush_i32(t->accq, scale, aw, kblk, pl_q + o);
+                flush_i32(t->accl, scale, aw, kblk, tmp, pl_l + o);
+                flush_u32((const uint32_t *)t->accq, scale, aw, kblk, (uint32_t *)tmp, pl_q + o);
             }
         }
     }

@@ -13,7 +13,9 @@ Per frame (XRGB8888 as BGRA bytes, like the bench):
            spectral-residual saliency (cv2.saliency) with its threshold and
            moments (subject, balance), phase correlation against the
            previous analysis frame (steadiness)
-Both sides are timed per frame and summarised by the median.
+Both sides are timed per frame in thread CPU time (time.thread_time here,
+CLOCK_THREAD_CPUTIME_ID in vfcoach bench) and summarised by the median, so a
+busy shared machine distorts the ratio as little as possible.
 
 Usage: bench_reference.py PATH_TO_VFCOACH [--frames N]
 """
@@ -108,11 +110,11 @@ def run_reference(w, h, frames):
     prev = None
     for i in range(frames + 3):
         img = imgs[i % nb]
-        t0 = time.perf_counter()
+        t0 = time.thread_time()
         _, small, small_luma, _ = tone(img)
-        t1 = time.perf_counter()
+        t1 = time.thread_time()
         _, _, _, prev = compose(small_luma, prev)
-        t2 = time.perf_counter()
+        t2 = time.thread_time()
         if i >= 3:  # warm-up frames untimed
             t_tone.append((t1 - t0) * 1e3)
             t_comp.append((t2 - t1) * 1e3)
