@@ -487,8 +487,8 @@ static int harbour_tables(demo_source *d, double e, double sigma_e, double ds, i
 }
 
 /* The boat, in its own frame: x along the horizon (bow at +x), y up from
- * the waterline, in hull lengths.  Convex parts; colour 0 the dark wood
- * of hull and mast, 1 the sails. */
+ * the waterline, in hull lengths.  Convex parts; colour 0 the white hull
+ * and the varnished mast, 1 the sails. */
 typedef struct boat_part { int n; double v[4][2]; int colour; } boat_part;
 static const boat_part boat_parts[] = {
     {4, {{-0.50, 0.16}, {0.56, 0.16}, {0.34, 0.0}, {-0.42, 0.0}}, 0},  /* hull */
@@ -594,7 +594,7 @@ static void draw_boat(demo_source *d, uint8_t *dst, int stride, const harbour_st
         blur_zero(m[k], d->tmp, mw, mh, sigma);
 
     static const rgb col[2] = {
-        {0.05f, 0.02f, 0.016f},  /* hull and mast: dark paint and wood in shade */
+        {0.26f, 0.235f, 0.20f},  /* hull and mast in the low warm light */
         {0.40f, 0.31f, 0.24f},   /* sails catching the dusk light */
     };
     rgb c0 = scale(col[0], e), c1 = scale(col[1], e);

@@ -710,6 +710,50 @@ static void test_demo_blur_edge_width(void **state)
     cap_source_destroy(s);
 }
 
+static void test_demo_boat_box(void **state)
+{
+    (void)state;
+    int w = 1280, h = 720;
+    cap_source *s = open_demo("demo", w, h);
+    uint8_t *img = malloc((size_t)w * h * 4);
+    double times[] = {0.0, 20.0, 45.0};
+    for (int k = 0; k < 3; k++) {
+        cap_demo_pin pin = {.exposure_ev = 0, .blur_sigma = 0, .horizon_deg = NAN};
+        cap_demo_set_pin(s, &pin);
+        cap_truth t;
+        cap_demo_render(s, times[k], img, w * 4, &t);
+        double tx0 = (t.subject_x - t.subject_w / 2) * w, tx1 = (t.subject_x + t.subject_w / 2) * w;
+        double ty0 = (t.subject_y - t.subject_h / 2) * h, ty1 = (t.subject_y + t.subject_h / 2) * h;
+        int rx0 = (int)tx0 - 12, rx1 = (int)tx1 + 12, ry0 = (int)ty0 - 12, ry1 = (int)ty1 + 12;
+        assert_true(rx0 >= 0 && rx1 < w && ry0 >= 0 && ry1 < h);
+        /* the sea around the box, then pixels clearly brighter than it */
+        double bg = 0;
+        int nbg = 0;
+        for (int y = ry0; y <= ry1; y++)
+            for (int x = rx0; x <= rx1; x++)
+                if (x < rx0 + 4 || x > rx1 - 4 || y < ry0 + 4 || y > ry1 - 4) {
+                    bg += ref_lum(img + ((size_t)y * (size_t)w + (size_t)x) * 4);
+                    nbg++;
+                }
+        bg /= nbg;
+        int bx0 = w, bx1 = -1, by0 = h, by1 = -1;
+        for (int y = ry0; y <= ry1; y++)
+            for (int x = rx0; x <= rx1; x++)
+                if (ref_lum(img + ((size_t)y * (size_t)w + (size_t)x) * 4) > bg + 0.08) {
+                    bx0 = x < bx0 ? x : bx0;
+                    bx1 = x > bx1 ? x : bx1;
+                    by0 = y < by0 ? y : by0;
+                    by1 = y > by1 ? y : by1;
+                }
+        print_message("boat found x %d..%d y %d..%d, truth x %.1f..%.1f y %.1f..%.1f\n", bx0,
+                      bx1 + 1, by0, by1 + 1, tx0, tx1, ty0, ty1);
+        assert_true(fabs(bx0 - tx0) < 2.5 && fabs(bx1 + 1 - tx1) < 2.5);
+        assert_true(fabs(by0 - ty0) < 2.5 && fabs(by1 + 1 - ty1) < 2.5);
+    }
+    free(img);
+    cap_source_destroy(s);
+}
+
 static void save_png(const char *path, const uint8_t *img, int w, int h)
 {
     SDL_Surface *sf = SDL_CreateRGBSurfaceWithFormatFrom((void *)img, w, h, 32, w * 4,
@@ -1115,6 +1159,7 @@ int main(void)
         cmocka_unit_test(test_demo_exposure_one_stop),
         cmocka_unit_test(test_demo_horizon_truth),
         cmocka_unit_test(test_demo_blur_edge_width),
+        cmocka_unit_test(test_demo_boat_box),
         cmocka_unit_test_setup_teardown(test_demo_blur_matches_opencv, tmpdir_setup, tmpdir_teardown),
         cmocka_unit_test(test_demo_tabletop_truth),
         cmocka_unit_test(test_source_dispatch),
