@@ -398,7 +398,7 @@ static void meter(ovl_window *w, const coach_result *r)
     float pw = fp * 13.0f, bar_h = fp * 0.55f, spark_h = fp * 2.4f;
     int tw, th;
     ovl_text_size(w, w->font_big, "100", &tw, &th);
-    float ph = (float)th + bar_h + spark_h + fp * 1.6f;
+    float ph = (float)th + bar_h + spark_h + fp * 1.3f + (float)TTF_FontLineSkip(w->font_small) + 4;
     float x = m, y = m;
     ovl_panel_rect(w, x, y, pw, ph);
     char s[32];
@@ -520,34 +520,69 @@ static void explain(ovl_window *w, const coach_result *r, float top)
     if (!w->explain || !r)
         return;
     float fp = (float)w->font_px, m = fp * 0.7f;
-    int lh = TTF_FontLineSkip(w->font), sh = TTF_FontLineSkip(w->font_small);
-    float pw = fp * 22.0f;
     int n = r->nterms > COACH_MAX_TERMS ? COACH_MAX_TERMS : r->nterms;
-    float row = (float)(lh + sh) + fp * 0.35f;
-    float ph = (float)lh * 1.4f + row * (float)(n ? n : 1) + fp * 0.6f;
-    float x = (float)w->ww - m - pw, y = top;
-    ovl_panel_rect(w, x, y, pw, ph);
-    char s[200];
-    snprintf(s, sizeof s, "Score %.0f — where it comes from", r->score);
-    ovl_text(w, w->font, s, x + fp * 0.6f, y + fp * 0.3f, 0, ovl_ink);
-    y += (float)lh * 1.4f + fp * 0.2f;
-    if (!n)
-        ovl_text(w, w->font_small, "No score parts for this frame yet.", x + fp * 0.6f, y, 0, ovl_dimtext);
     double wsum = 0;
     for (int i = 0; i < n; i++)
         wsum += r->terms[i].weight;
+    char title[80], detail[COACH_MAX_TERMS][160];
+    snprintf(title, sizeof title, "Score %.0f — where it comes from", r->score);
+    for (int i = 0; i < n; i++) {
+        const coach_term *t = &r->terms[i];
+        snprintf(detail[i], sizeof detail[i], "%.0f%% of full marks · counts %.0f%% of the score → %.1f points",
+                 100.0 * t->value, wsum > 0 ? 100.0 * t->weight / wsum : 0.0, t->contribution);
+    }
+    /* two lines a part when they fit, else one short line each */
+    int lh = TTF_FontLineSkip(w->font), sh = TTF_FontLineSkip(w->font_small);
+    float row = (float)(lh + sh) + fp * 0.35f;
+    float head = (float)lh * 1.4f + fp * 0.2f;
+    int compact = top + head + row * (float)n + fp > (float)w->wh;
+    if (compact)
+        row = (float)sh + fp * 0.35f;
+    int maxw = 0, tw, th;
+    ovl_text_size(w, w->font, title, &maxw, &th);
     for (int i = 0; i < n; i++) {
         const coach_term *t = &r->terms[i];
         const char *label = t->label ? t->label : t->name ? t->name : "?";
-        ovl_text(w, w->font, label, x + fp * 0.6f, y, 0, ovl_ink);
-        snprintf(s, sizeof s, "%.0f%% of full marks · counts %.0f%% of the score → %.1f points",
-                 100.0 * t->value, wsum > 0 ? 100.0 * t->weight / wsum : 0.0, t->contribution);
-        ovl_text(w, w->font_small, s, x + fp * 0.6f, y + (float)lh, 0, ovl_dimtext);
+        if (compact) {
+            snprintf(detail[i], sizeof detail[i], "%s: %.0f%% → %.1f points", label, 100.0 * t->value,
+                     t->contribution);
+            ovl_text_size(w, w->font_small, detail[i], &tw, &th);
+        } else {
+            ovl_text_size(w, w->font, label, &tw, &th);
+            if (tw > maxw)
+                maxw = tw;
+            ovl_text_size(w, w->font_small, detail[i], &tw, &th);
+        }
+        if (tw > maxw)
+            maxw = tw;
+    }
+    float pw = (float)maxw + fp * 1.2f;
+    if (pw > (float)w->ww * 0.6f)
+        pw = (float)w->ww * 0.6f;
+    float ph = head + row * (float)(n ? n : 1) + fp * 0.4f;
+    float x = (float)w->ww - m - pw, y = top;
+    ovl_panel_rect(w, x, y, pw, ph);
+    ovl_text(w, w->font, title, x + fp * 0.6f, y + fp * 0.3f, 0, ovl_ink);
+    y += head;
+    if (!n)
+        ovl_text(w, w->font_small, "No score parts for this frame yet.", x + fp * 0.6f, y, 0, ovl_dimtext);
+    for (int i = 0; i < n; i++) {
+        const coach_term *t = &r->terms[i];
+        const char *label = t->label ? t->label : t->name ? t->name : "?";
+        float ty = y;
+        if (compact) {
+            ovl_text(w, w->font_small, detail[i], x + fp * 0.6f, ty, 0, ovl_ink);
+            ty += (float)sh;
+        } else {
+            ovl_text(w, w->font, label, x + fp * 0.6f, ty, 0, ovl_ink);
+            ovl_text(w, w->font_small, detail[i], x + fp * 0.6f, ty + (float)lh, 0, ovl_dimtext);
+            ty += (float)(lh + sh);
+        }
         /* a thin bar: how much of its share this part earns */
-        float bw = pw - fp * 1.2f, by = y + (float)(lh + sh) + 1;
-        ovl_fill(w, x + fp * 0.6f, by, bw, 3, (SDL_Color){70, 74, 84, 230});
+        float bw = pw - fp * 1.2f;
+        ovl_fill(w, x + fp * 0.6f, ty + 1, bw, 3, (SDL_Color){70, 74, 84, 230});
         double v = t->value < 0 ? 0 : t->value > 1 ? 1 : t->value;
-        ovl_fill(w, x + fp * 0.6f, by, bw * (float)v, 3, ovl_ink);
+        ovl_fill(w, x + fp * 0.6f, ty + 1, bw * (float)v, 3, ovl_ink);
         y += row;
     }
 }
@@ -622,11 +657,12 @@ void ovl_draw_hud(ovl_window *w, const coach_result *r, const ovl_status *st)
     histogram(w, r);
     hints(w, r);
     if (w->presenter && w->present_guide >= 0) {
+        /* the guide's name, top right: clear of the meter at top left */
         char b[64];
         const char *t = guide_title(w, b, sizeof b);
         int tw, th;
         ovl_text_size(w, w->font_big, t, &tw, &th);
-        float fp = (float)w->font_px, x = ((float)w->ww - (float)tw) / 2, y = fp * 0.7f;
+        float fp = (float)w->font_px, x = (float)w->ww - fp * 1.7f - (float)tw, y = fp * 0.7f;
         ovl_panel_rect(w, x - fp, y, (float)tw + 2 * fp, (float)th + fp * 0.4f);
         ovl_text(w, w->font_big, t, x, y + fp * 0.2f, 0, ovl_ink);
     }
