@@ -626,7 +626,10 @@ static void harbour_render(demo_source *d, double t, uint8_t *dst, int stride, c
 {
     harbour_state hs = harbour_at(d, t);
     int w = d->w, h = d->h;
-    double e = exp2(hs.ev);
+    /* The base light puts the frame about half a stop under middle grey, so
+     * the drift crosses a well exposed band and, at its brightest, just
+     * clips the glow over the horizon. */
+    double e = 1.6 * exp2(hs.ev);
     double sigma = clampd(hs.sigma, 0, SIGMA_MAX);
     /* A pixel integrates over its area: a box of width 1 has variance 1/12,
      * so straight edges are drawn with that much extra blur (antialiasing). */
