@@ -12,8 +12,12 @@
 /* Lead room needs the subject to move across the scene at least this fast
  * (frame widths per second) — slower drift is not a direction of travel. */
 #define LEAD_MIN_SPEED 0.03
-/* Subject velocity smoothing time constant, seconds. */
-#define LEAD_TAU_S 0.3
+/* Track length the subject's velocity is fitted over, seconds, and the
+ * ring that holds it (30 fps for a second, with room). */
+#define LEAD_WINDOW_S 1.0
+#define LEAD_HIST 48
+
+typedef struct lead_sample { double t, x, ximg, y; } lead_sample;
 /* A centre jump larger than this (fraction of the frame) between frames
  * means another region won: restart the track. */
 #define TRACK_JUMP 0.15
@@ -26,8 +30,9 @@ struct coach_compose {
     coach_level_est last_level;
     const float *last_map;
     /* subject track */
-    int track_n;
-    double track_t, track_x, track_y, vx;
+    lead_sample track[LEAD_HIST];  /* ring of the subject's recent positions */
+    int track_n, track_head;
+    double pan_x;                  /* accumulated camera shift, frame widths */
     double t_prev;
     int have_t;
 };
@@ -65,8 +70,9 @@ void coach_compose_reset(coach_compose *c)
         return;
     coach_motion_reset(c->motion);
     c->track_n = 0;
+    c->track_head = 0;
+    c->pan_x = 0;
     c->have_t = 0;
-    c->vx = 0;
 }
 
 /* Power points: the crossings of the grid lines, at 1/3 and 2/3 for the
@@ -129,37 +135,68 @@ static void subject_focus(const coach_aimg *img, const coach_box *b, coach_resul
     out->subject_focus = (var_box > 0 ? var_box : 0) / var_all;
 }
 
-/* Lead room: the subject's horizontal velocity relative to the scene (its
- * own image velocity minus the global shift, so panning with a moving
- * subject still counts) decides which side is "ahead"; lead room is the
- * share of the free width that lies ahead of the subject's box. */
+/* Lead room: the subject's horizontal velocity relative to the scene
+ * decides which side is "ahead"; lead room is the share of the free width
+ * that lies ahead of the subject's box.  Positions are tracked in scene
+ * coordinates (the image position minus the accumulated camera shift, so
+ * panning with a moving subject still counts), and the velocity is the
+ * least-squares slope over the last LEAD_WINDOW_S seconds: it must exceed
+ * LEAD_MIN_SPEED and three standard errors, so the jitter of the detected
+ * centre does not make a direction out of a subject that stands still. */
 static void lead_room(coach_compose *c, double t, int measured, double shift_fx, coach_result *out)
 {
+    if (measured)
+        c->pan_x += shift_fx;
     if (!out->has_subject) {
         c->track_n = 0;
         return;
     }
     const double x = out->subject.x, y = out->subject.y;
     if (c->track_n > 0) {
-        double dt = t - c->track_t;
-        if (dt <= 0 || fabs(x - c->track_x) > TRACK_JUMP || fabs(y - c->track_y) > TRACK_JUMP) {
+        const lead_sample *last = &c->track[(c->track_head + LEAD_HIST - 1) % LEAD_HIST];
+        if (t <= last->t || fabs(x - last->ximg) > TRACK_JUMP || fabs(y - last->y) > TRACK_JUMP)
             c->track_n = 0;
-        } else {
-            double v = (x - c->track_x - (measured ? shift_fx : 0.0)) / dt;
-            double al = 1.0 - exp(-dt / LEAD_TAU_S);
-            c->vx = c->track_n == 1 ? v : c->vx + al * (v - c->vx);
-        }
     }
-    c->track_n++;
-    c->track_t = t;
-    c->track_x = x;
-    c->track_y = y;
-    if (c->track_n < 3 || fabs(c->vx) < LEAD_MIN_SPEED)
+    lead_sample *sm = &c->track[c->track_head];
+    sm->t = t;
+    sm->x = x - c->pan_x;
+    sm->ximg = x;
+    sm->y = y;
+    c->track_head = (c->track_head + 1) % LEAD_HIST;
+    if (c->track_n < LEAD_HIST)
+        c->track_n++;
+    double S = 0, St = 0, Sx = 0, Stt = 0, Stx = 0;
+    int n = 0;
+    double t0 = t;
+    for (int i = 0; i < c->track_n; i++) {
+        const lead_sample *q = &c->track[(c->track_head + LEAD_HIST - 1 - i) % LEAD_HIST];
+        if (t - q->t > LEAD_WINDOW_S)
+            break;
+        double tt = q->t - t0;
+        S += 1;
+        St += tt;
+        Sx += q->x;
+        Stt += tt * tt;
+        Stx += tt * q->x;
+        n++;
+    }
+    double den = S * Stt - St * St;
+    if (n < 6 || den <= 0 || Stt / S - (St / S) * (St / S) < 0.04 * 0.04)
+        return; /* fewer than 6 samples or under ~0.15 s of track */
+    double slope = (S * Stx - St * Sx) / den, icpt = (Sx - slope * St) / S;
+    double sr = 0;
+    for (int i = 0; i < n; i++) {
+        const lead_sample *q = &c->track[(c->track_head + LEAD_HIST - 1 - i) % LEAD_HIST];
+        double r = q->x - (icpt + slope * (q->t - t0));
+        sr += r * r;
+    }
+    double se = sqrt(sr / (n - 2) * S / den);
+    if (fabs(slope) < LEAD_MIN_SPEED || fabs(slope) < 3.0 * se)
         return;
     double left = x - 0.5 * out->subject.w, right = 1.0 - (x + 0.5 * out->subject.w);
     if (left < 0) left = 0;
     if (right < 0) right = 0;
-    double ahead = c->vx > 0 ? right : left, behind = c->vx > 0 ? left : right;
+    double ahead = slope > 0 ? right : left, behind = slope > 0 ? left : right;
     if (ahead + behind <= 0)
         return;
     out->has_lead_room = 1;
@@ -213,7 +250,7 @@ void coach_compose_run(coach_compose *c, const coach_aimg *img, int full_w, int 
      * w*s x h*s full-resolution pixels (the remainder is cut): map its
      * fractions back onto the whole frame. */
     coach_salient sa;
-    c->last_map = coach_saliency_run(c->sal, img->luma, img->w, img->h, &sa);
+    c->last_map = coach_saliency_run(c->sal, img->luma, img->r, img->g, img->b, img->w, img->h, &sa);
     const double fx = (double)img->w * s / full_w, fy = (double)img->h * s / full_h;
     out->balance_lr = sa.balance_lr;
     out->balance_tb = sa.balance_tb;

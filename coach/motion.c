@@ -7,9 +7,9 @@
  * phase correlation peak.
  *
  * This is the camera's motion, so the subject is left out: the region
- * around the subject's box in either frame is filled with the patch mean
- * before the transform, otherwise on a plain backdrop the subject's own
- * motion would be taken for the camera's (and lead room would vanish).
+ * around the subject's box in either frame is faded to the patch mean with
+ * a soft edge in both frames, otherwise on a plain backdrop the subject's
+ * own motion would be taken for the camera's (and lead room would vanish).
  *
  * The window is MW x MH pixels taken from the middle of the analysis image
  * after an integer box reduction by k = max(1, w / 160), so the measurable
@@ -28,6 +28,8 @@
 /* Texture needed to track: mean squared difference between neighbouring
  * patch cells, in (8-bit luma)^2 (a smooth gradient under noise has less). */
 #define MIN_TEXTURE 0.5
+/* Width of the mask's soft edge, patch cells. */
+#define RAMP 6.0
 
 struct coach_motion {
     coach_fft_plan px, py;
@@ -36,6 +38,7 @@ struct coach_motion {
     int prev_has_box;
     coach_box prev_box;
     float win[MN];
+    float wm[MN];         /* subject mask weights, 0..1 */
     float prev_raw[MN];   /* previous reduced patch, unmasked (-1: outside) */
     float cur_raw[MN];
     float a[2 * MN], b[2 * MN];
@@ -90,44 +93,53 @@ static void take_patch(const float *luma, int w, int h, int k, float *p)
     }
 }
 
-/* Marks (as -1) the patch cells under a box given in fractions of the
- * analysis image, grown by a quarter of its size on each side. */
-static void mask_box(float *p, const coach_box *bx, int w, int h, int k)
+/* Lowers the weights in wm (1 = use) around a box given in fractions of
+ * the analysis image, grown by a quarter of its size on each side: 0 inside,
+ * rising to 1 over RAMP cells outside along a raised cosine, so the mask
+ * adds no sharp edges of its own to the spectrum. */
+static void mask_box(float *wm, const coach_box *bx, int w, int h, int k)
 {
     const int rw = w / k, rh = h / k;
     const int ox = (rw - MW) / 2, oy = (rh - MH) / 2;
-    double x0 = (bx->x - 0.75 * bx->w) * rw - ox, x1 = (bx->x + 0.75 * bx->w) * rw - ox;
-    double y0 = (bx->y - 0.75 * bx->h) * rh - oy, y1 = (bx->y + 0.75 * bx->h) * rh - oy;
-    int ix0 = (int)floor(x0), ix1 = (int)ceil(x1), iy0 = (int)floor(y0), iy1 = (int)ceil(y1);
-    if (ix0 < 0) ix0 = 0;
-    if (iy0 < 0) iy0 = 0;
-    if (ix1 > MW) ix1 = MW;
-    if (iy1 > MH) iy1 = MH;
-    for (int y = iy0; y < iy1; y++)
-        for (int x = ix0; x < ix1; x++)
-            p[y * MW + x] = -1.0f;
+    const double x0 = (bx->x - 0.75 * bx->w) * rw - ox, x1 = (bx->x + 0.75 * bx->w) * rw - ox;
+    const double y0 = (bx->y - 0.75 * bx->h) * rh - oy, y1 = (bx->y + 0.75 * bx->h) * rh - oy;
+    for (int y = 0; y < MH; y++) {
+        double dy = y + 0.5 < y0 ? y0 - (y + 0.5) : y + 0.5 > y1 ? y + 0.5 - y1 : 0;
+        if (dy >= RAMP)
+            continue;
+        for (int x = 0; x < MW; x++) {
+            double dx = x + 0.5 < x0 ? x0 - (x + 0.5) : x + 0.5 > x1 ? x + 0.5 - x1 : 0;
+            double d = dx > dy ? dx : dy;
+            if (d >= RAMP)
+                continue;
+            float v = (float)(0.5 - 0.5 * cos(M_PI * d / RAMP));
+            if (v < wm[y * MW + x])
+                wm[y * MW + x] = v;
+        }
+    }
 }
 
-/* Mean-removed, windowed complex patch from the valid (>= 0) cells, the
- * others set to the mean; returns the texture: the mean squared difference
- * between valid neighbouring cells (0 with too few valid cells). */
-static double prepare(const coach_motion *m, const float *raw, const float *mask, float *out)
+/* Mean-removed patch times the Hann window and the weights wm (cells
+ * outside the image count as the mean); returns the texture: the mean
+ * squared difference between neighbouring cells of full weight (0 when
+ * too few are left). */
+static double prepare(const coach_motion *m, const float *raw, const float *wm, float *out)
 {
     double sum = 0, tex = 0;
     int cnt = 0, ntex = 0;
     for (int y = 0; y < MH; y++)
         for (int x = 0; x < MW; x++) {
             int i = y * MW + x;
-            if (raw[i] < 0 || mask[i] < 0)
+            if (raw[i] < 0 || wm[i] < 1.0f)
                 continue;
             sum += raw[i];
             cnt++;
-            if (x + 1 < MW && raw[i + 1] >= 0 && mask[i + 1] >= 0) {
+            if (x + 1 < MW && raw[i + 1] >= 0 && wm[i + 1] >= 1.0f) {
                 double d = raw[i + 1] - raw[i];
                 tex += d * d;
                 ntex++;
             }
-            if (y + 1 < MH && raw[i + MW] >= 0 && mask[i + MW] >= 0) {
+            if (y + 1 < MH && raw[i + MW] >= 0 && wm[i + MW] >= 1.0f) {
                 double d = raw[i + MW] - raw[i];
                 tex += d * d;
                 ntex++;
@@ -137,7 +149,7 @@ static double prepare(const coach_motion *m, const float *raw, const float *mask
         return 0;
     const float mean = (float)(sum / cnt);
     for (int i = 0; i < MN; i++) {
-        float v = (raw[i] >= 0 && mask[i] >= 0) ? raw[i] - mean : 0.0f;
+        float v = raw[i] >= 0 ? (raw[i] - mean) * wm[i] : 0.0f;
         out[2 * i] = v * m->win[i];
         out[2 * i + 1] = 0;
     }
@@ -183,16 +195,16 @@ int coach_motion_run(coach_motion *m, const float *luma, int w, int h, const coa
     take_patch(luma, w, h, k, m->cur_raw);
     int measured = 0;
     if (m->have_prev && m->prev_k == k) {
-        /* One mask for both frames: the subject's region in either. */
-        float *mask = m->scratch; /* MN floats of the scratch, reused below */
+        /* One soft mask for both frames over the subject's region in
+         * either. */
         for (int i = 0; i < MN; i++)
-            mask[i] = 0;
+            m->wm[i] = 1.0f;
         if (exclude)
-            mask_box(mask, exclude, w, h, k);
+            mask_box(m->wm, exclude, w, h, k);
         if (m->prev_has_box)
-            mask_box(mask, &m->prev_box, w, h, k);
-        double va = prepare(m, m->cur_raw, mask, m->a);
-        double vb = prepare(m, m->prev_raw, mask, m->b);
+            mask_box(m->wm, &m->prev_box, w, h, k);
+        double vb = prepare(m, m->prev_raw, m->wm, m->b);
+        double va = prepare(m, m->cur_raw, m->wm, m->a);
         if (va >= MIN_TEXTURE && vb >= MIN_TEXTURE) {
             coach_fft2d(&m->px, &m->py, m->a, m->scratch, 0);
             coach_fft2d(&m->px, &m->py, m->b, m->scratch, 0);

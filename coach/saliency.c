@@ -19,6 +19,9 @@
 
 /* Regions of the object map closer than this (cells) form one subject. */
 #define MERGE_GAP 3
+/* Colour distance (8-bit RGB units) from every border piece for a subject
+ * to be taken from the boundary contrast. */
+#define MIN_BOUNDARY_CONTRAST 40.0f
 #define MAX_CAND 48
 
 typedef struct region {
@@ -39,6 +42,8 @@ struct coach_saliency {
     region *regions;       /* the MAX_CAND heaviest regions             */
     float la[NN], lb[NN];  /* log amplitude, its local mean              */
     float map[NN];
+    float cr[NN], cg[NN], cb[NN]; /* colour at N x N                     */
+    float bmap[NN];               /* boundary contrast                    */
     int16_t label[NN];
     int16_t stack[NN];
 };
@@ -202,24 +207,80 @@ static int spectral_residual(coach_saliency *s, const float *luma, int w, int h)
     return 1;
 }
 
+/* Boundary contrast, from the background prior (Wei, Wen, Zhu & Sun,
+ * ECCV 2012: the borders of a photograph are mostly background): each
+ * cell's colour distance to the nearest of the border's pieces (per-channel
+ * medians of 4 segments per side, 2 cells deep).  A uniform object on a
+ * quiet backdrop lights up as a whole here, where the spectral residual
+ * marks mostly its outline and details.  Returns the largest distance. */
+#define SEGS 4
+static float boundary_contrast(coach_saliency *s, const float *r, const float *g, const float *b,
+                               int w, int h)
+{
+    const float *src[3] = {r, g, b};
+    float *dst[3] = {s->cr, s->cg, s->cb};
+    for (int c = 0; c < 3; c++) {
+        for (int y = 0; y < h; y++)
+            resample_line(src[c] + (size_t)y * w, w, 1, s->rows + (size_t)y * N, 1);
+        for (int x = 0; x < N; x++)
+            resample_line(s->rows + x, h, N, dst[c] + x, N);
+    }
+    float proto[4 * SEGS][3];
+    const int L = N / SEGS;
+    for (int side = 0; side < 4; side++)
+        for (int sg = 0; sg < SEGS; sg++)
+            for (int c = 0; c < 3; c++) {
+                float v[2 * N / SEGS];
+                int n = 0;
+                for (int d = 0; d < 2; d++)
+                    for (int i = sg * L; i < (sg + 1) * L; i++) {
+                        int x = side == 0 ? d : side == 1 ? N - 1 - d : i;
+                        int y = side == 2 ? d : side == 3 ? N - 1 - d : i;
+                        float q = dst[c][y * N + x];
+                        int k = n++;
+                        while (k > 0 && v[k - 1] > q) {
+                            v[k] = v[k - 1];
+                            k--;
+                        }
+                        v[k] = q;
+                    }
+                proto[side * SEGS + sg][c] = 0.5f * (v[n / 2 - 1] + v[n / 2]);
+            }
+    float mx = 0;
+    for (int i = 0; i < NN; i++) {
+        float best = 1e30f;
+        for (int p = 0; p < 4 * SEGS; p++) {
+            float dr = s->cr[i] - proto[p][0], dg = s->cg[i] - proto[p][1], db = s->cb[i] - proto[p][2];
+            float d2 = dr * dr + dg * dg + db * db;
+            if (d2 < best)
+                best = d2;
+        }
+        s->bmap[i] = sqrtf(best);
+        if (s->bmap[i] > mx)
+            mx = s->bmap[i];
+    }
+    return mx;
+}
+
 /* The subject: the 8-connected regions of the object map, grouped when
  * their boxes lie within MERGE_GAP cells of each other (the spectral
  * residual outlines a larger object, and its outline can break into
- * pieces); the group holding the most saliency wins. */static int root(region *r, int i)
+ * pieces); the group holding the most saliency wins. */
+static int root(region *r, int i)
 {
     while (r[i].parent != i)
         i = r[i].parent = r[r[i].parent].parent;
     return i;
 }
 
-static void find_subject(coach_saliency *s, float thr, coach_salient *out)
+static void find_subject(coach_saliency *s, const float *map, float thr, coach_salient *out)
 {
     memset(s->label, 0, sizeof s->label);
     region *rg = s->regions;
     int nlab = 0;
     double total = 0;
     for (int i = 0; i < NN; i++) {
-        if (s->map[i] <= thr || s->label[i])
+        if (map[i] <= thr || s->label[i])
             continue;
         region r = {0, 0, 0, N, N, -1, -1, 0, 0};
         int sp = 0;
@@ -228,7 +289,7 @@ static void find_subject(coach_saliency *s, float thr, coach_salient *out)
         s->label[i] = (int16_t)nlab;
         while (sp) {
             int p = s->stack[--sp], px = p % N, py = p / N;
-            double v = s->map[p] - thr;
+            double v = map[p] - thr;
             r.mass += v;
             r.sx += v * (px + 0.5);
             r.sy += v * (py + 0.5);
@@ -246,7 +307,7 @@ static void find_subject(coach_saliency *s, float thr, coach_salient *out)
                     if (qx < 0 || qy < 0 || qx >= N || qy >= N)
                         continue;
                     int q = qy * N + qx;
-                    if (s->map[q] > thr && !s->label[q]) {
+                    if (map[q] > thr && !s->label[q]) {
                         s->label[q] = (int16_t)nlab;
                         s->stack[sp++] = (int16_t)q;
                     }
@@ -327,8 +388,8 @@ static void find_subject(coach_saliency *s, float thr, coach_salient *out)
     out->subject.h = (double)(y1 - y0 + 1) / N;
 }
 
-const float *coach_saliency_run(coach_saliency *s, const float *luma, int w, int h,
-                                coach_salient *out)
+const float *coach_saliency_run(coach_saliency *s, const float *luma, const float *r,
+                                const float *g, const float *b, int w, int h, coach_salient *out)
 {
     memset(out, 0, sizeof *out);
     if (!s || w < 1 || h < 1 || w > s->max_w || h > s->max_h)
@@ -357,6 +418,22 @@ const float *coach_saliency_run(coach_saliency *s, const float *luma, int w, int
         out->balance_lr = mx / m;
         out->balance_tb = my / m;
     }
-    find_subject(s, (float)(3.0 * mean), out);
+    find_subject(s, s->map, (float)(3.0 * mean), out);
+    /* A subject that differs in colour from every part of the border is
+     * located on the boundary-contrast map instead, which covers its whole
+     * body; the spectral residual's outline pulls the centre toward the
+     * most detailed part.  It has to be one clear region there. */
+    if (r && g && b && boundary_contrast(s, r, g, b, w, h) >= MIN_BOUNDARY_CONTRAST) {
+        coach_salient bs;
+        memset(&bs, 0, sizeof bs);
+        float bmx = 0;
+        for (int i = 0; i < NN; i++)
+            bmx = s->bmap[i] > bmx ? s->bmap[i] : bmx;
+        find_subject(s, s->bmap, 0.4f * bmx, &bs);
+        if (bs.has_subject && bs.subject.w < 0.8 && bs.subject.h < 0.8) {
+            out->has_subject = 1;
+            out->subject = bs.subject;
+        }
+    }
     return s->map;
 }

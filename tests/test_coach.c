@@ -1095,8 +1095,9 @@ static void test_motion_known_shift(void **state)
 }
 
 /* Lead room (common practice: leave space in front of a moving subject):
- * a subject crossing a still backdrop; the value is the share of the free
- * width ahead of its box, checked against the rendered geometry. */
+ * a subject crossing a still backdrop, and one the camera pans with; the
+ * value is the share of the free width ahead of its box, checked against
+ * the rendered geometry. */
 static void test_lead_room_follows_motion(void **state)
 {
     (void)state;
@@ -1118,6 +1119,38 @@ static void test_lead_room_follows_motion(void **state)
         double truth = (dir > 0 ? right : left) / (left + right);
         assert_true(truth > 0.6);
         assert_true(fabs(r.lead_room - truth) <= 0.05);
+    }
+    /* panning with the subject: it keeps its place in the frame while the
+     * backdrop slides left (the camera turns right), so it moves right */
+    {
+        const int big = 1400;
+        float *tex = malloc((size_t)big * 600 * sizeof(float));
+        assert_non_null(tex);
+        for (int y = 0; y < 600; y++)
+            for (int x = 0; x < big; x++)
+                tex[(size_t)y * big + x] = (float)(120 + 40 * sin(x * 0.031 + 2 * sin(y * 0.013)) +
+                                                   30 * sin(y * 0.023 + x * 0.007) +
+                                                   10 * (b_rand() - 0.5));
+        static const uint8_t red[3] = {210, 40, 30};
+        coach_reset(a);
+        for (int i = 0; i < 10; i++) {
+            int ox = 20 + 12 * i; /* 12 px per frame: 0.375 frame widths per second */
+            for (int y = 0; y < f.h; y++)
+                for (int x = 0; x < f.w; x++) {
+                    uint8_t *p = b_px(&f, x, y);
+                    double in = 0.5 - (hypot(x + 0.5 - 0.3 * f.w, y + 0.5 - 0.5 * f.h) - rf * f.h);
+                    in = in < 0 ? 0 : in > 1 ? 1 : in;
+                    double v = tex[(size_t)y * big + x + ox];
+                    for (int c = 0; c < 3; c++)
+                        p[c] = b_u8(v * (1 - in) + red[c] * in);
+                }
+            assert_int_equal(coach_analyze(a, &f, i / 30.0, &r), 0);
+        }
+        assert_true(r.has_subject);
+        assert_true(r.has_lead_room);
+        double left = 0.3 - half_w, right = 1 - (0.3 + half_w);
+        assert_true(fabs(r.lead_room - right / (left + right)) <= 0.05);
+        free(tex);
     }
     /* standing still: no direction, no lead room */
     coach_reset(a);
