@@ -133,7 +133,7 @@ typedef struct cap_camera_mode {
     int nfps;                  /* frame rates, fastest first               */
     double fps[16];
     int fps_range;             /* 1: any rate from fps[1] up to fps[0]     */
-    int passthrough;           /* 1: reaches the analysis unconverted      */
+    int passthrough;           /* 1: reaches the analysis as it comes; 2: only reordered (UYVY → YUYV...); 0: converted to RGB */
     double chosen_fps;         /* > 0 on the mode vfcoach takes by default, at this rate */
 } cap_camera_mode;
 

@@ -375,7 +375,7 @@ int cap_camera_list(cap_camera_info **out, char *err, size_t errlen)
             cm->nfps = modes[j].nrates;
             for (int q = 0; q < modes[j].nrates && q < 16; q++)
                 cm->fps[q] = modes[j].rates[q].num ? (double)modes[j].rates[q].den / modes[j].rates[q].num : 0;
-            cm->passthrough = cap_v4l2_format_cost(cm->fourcc) <= 1 || cm->fourcc == V4L2_PIX_FMT_GREY;
+            cm->passthrough = cap_v4l2_format_path(cm->fourcc);
         }
     }
     free(modes);

@@ -10,8 +10,10 @@
  * marks as erroneous and JPEG frames that fail to decode are skipped.
  *
  * Formats: YUYV, NV12, GREY, RGB24 and BGR24 reach the analysis as they
- * are (with the driver's colour information); every other format is turned
- * into RGB24 by our own libv4lconvert instance, because libv4l2's built-in
+ * are (with the driver's colour information); UYVY, YVYU, NV21, YU12 and
+ * YV12 are reordered into YUYV or NV12 by us, keeping that information;
+ * MJPEG, JPEG, RGB565 and Bayer are turned into RGB24 by our own
+ * libv4lconvert instance, because libv4l2's built-in
  * conversion chooses its source format without looking at frame rates
  * (it would take YUYV at 10 fps over MJPEG at 30).  libv4l2 is still what
  * opens the device, so multi-planar drivers work through its plugin. */
@@ -156,6 +158,7 @@ int cap_v4l2_format_cost(uint32_t fourcc)
     case V4L2_PIX_FMT_NV21:
     case V4L2_PIX_FMT_YUV420:
     case V4L2_PIX_FMT_YVU420:
+        return 2;                  /* reordered into YUYV or NV12 by us   */
     case V4L2_PIX_FMT_RGB565:
         return 2;                  /* one cheap libv4lconvert pass        */
     case V4L2_PIX_FMT_SBGGR8:
@@ -173,6 +176,18 @@ int cap_v4l2_format_cost(uint32_t fourcc)
     }
 }
 
+static coach_format repack_format(uint32_t fourcc);
+
+int cap_v4l2_format_path(uint32_t fourcc)
+{
+    int cost = cap_v4l2_format_cost(fourcc);
+    if (cost < 0)
+        return -1;
+    if (cost <= 1 || fourcc == V4L2_PIX_FMT_GREY)
+        return 1;
+    return repack_format(fourcc) != COACH_FMT_NONE ? 2 : 0;
+}
+
 /* The coach format a passed-through fourcc becomes; NONE when converted. */
 static coach_format passthrough_format(uint32_t fourcc)
 {
@@ -184,6 +199,84 @@ static coach_format passthrough_format(uint32_t fourcc)
     case V4L2_PIX_FMT_BGR24: return COACH_FMT_BGR24;
     default: return COACH_FMT_NONE;
     }
+}
+
+/* Y'CbCr layouts that differ from YUYV or NV12 only in byte order or
+ * plane arrangement: reordered by us, so they keep the driver's matrix and
+ * range (libv4lconvert would turn them into RGB as if they were full range). */
+static coach_format repack_format(uint32_t fourcc)
+{
+    switch (fourcc) {
+    case V4L2_PIX_FMT_UYVY:
+    case V4L2_PIX_FMT_YVYU:
+        return COACH_FMT_YUYV;
+    case V4L2_PIX_FMT_NV21:
+    case V4L2_PIX_FMT_YUV420:
+    case V4L2_PIX_FMT_YVU420:
+        return COACH_FMT_NV12;
+    default:
+        return COACH_FMT_NONE;
+    }
+}
+
+/* Bytes per pixel of the first plane as the driver sends it (0: compressed). */
+static int src_bpp(uint32_t fourcc)
+{
+    switch (fourcc) {
+    case V4L2_PIX_FMT_YUYV: case V4L2_PIX_FMT_UYVY: case V4L2_PIX_FMT_YVYU: case V4L2_PIX_FMT_RGB565:
+        return 2;
+    case V4L2_PIX_FMT_RGB24: case V4L2_PIX_FMT_BGR24:
+        return 3;
+    case V4L2_PIX_FMT_MJPEG: case V4L2_PIX_FMT_JPEG:
+        return 0;
+    default:
+        return 1;
+    }
+}
+
+/* Reorders one frame into YUYV (out_stride = 2w) or NV12 (out_stride even,
+ * the CbCr plane right after h rows). */
+static void repack(uint32_t fourcc, int w, int h, uint32_t bpl, const uint8_t *src, uint8_t *dst, int out_stride)
+{
+    size_t os = (size_t)out_stride, ch = ((size_t)h + 1) / 2, pairs = ((size_t)w + 1) / 2;
+    if (fourcc == V4L2_PIX_FMT_UYVY || fourcc == V4L2_PIX_FMT_YVYU) {
+        int uyvy = fourcc == V4L2_PIX_FMT_UYVY;
+        for (int y = 0; y < h; y++) {
+            const uint8_t *s = src + (size_t)y * bpl;
+            uint8_t *d = dst + (size_t)y * os;
+            for (size_t x = 0; x < (size_t)w / 2; x++, s += 4, d += 4) {
+                if (uyvy) { /* U Y0 V Y1 */
+                    d[0] = s[1]; d[1] = s[0]; d[2] = s[3]; d[3] = s[2];
+                } else {    /* Y0 V Y1 U */
+                    d[0] = s[0]; d[1] = s[3]; d[2] = s[2]; d[3] = s[1];
+                }
+            }
+        }
+        return;
+    }
+    for (int y = 0; y < h; y++)
+        memcpy(dst + (size_t)y * os, src + (size_t)y * bpl, (size_t)w);
+    uint8_t *uv = dst + os * (size_t)h;
+    const uint8_t *c = src + (size_t)bpl * (size_t)h;
+    if (fourcc == V4L2_PIX_FMT_NV21) { /* CrCb pairs → CbCr */
+        for (size_t y = 0; y < ch; y++)
+            for (size_t x = 0; x < pairs; x++) {
+                uv[y * os + 2 * x] = c[y * bpl + 2 * x + 1];
+                uv[y * os + 2 * x + 1] = c[y * bpl + 2 * x];
+            }
+        return;
+    }
+    size_t cs = bpl / 2; /* planar 4:2:0: Cb then Cr (YU12), or Cr then Cb (YV12) */
+    const uint8_t *cb = c, *cr = c + cs * ch;
+    if (fourcc == V4L2_PIX_FMT_YVU420) {
+        cr = c;
+        cb = c + cs * ch;
+    }
+    for (size_t y = 0; y < ch; y++)
+        for (size_t x = 0; x < pairs; x++) {
+            uv[y * os + 2 * x] = cb[y * cs + x];
+            uv[y * os + 2 * x + 1] = cr[y * cs + x];
+        }
 }
 
 void cap_v4l2_colour(uint32_t colorspace, uint32_t ycbcr_enc, uint32_t quantization,
@@ -612,6 +705,9 @@ typedef struct v4l2_src {
     uint32_t bpl, sizeimage;
     cap_v4l2_rate rate;
     coach_format outfmt;           /* NONE: converted to RGB24           */
+    int repack;                    /* 1: reordered into YUYV/NV12 by us  */
+    int out_stride;                /* bytes per row of the frame we hand on */
+    size_t in_bytes;               /* bytes a whole driver frame needs (uncompressed) */
     coach_matrix matrix;
     coach_range range;
     size_t out_bytes;
@@ -765,15 +861,30 @@ static int stream_start(v4l2_src *v, size_t max_bytes, char *err, size_t errlen)
     v->w = (int)f.fmt.pix.width;
     v->h = (int)f.fmt.pix.height;
     v->outfmt = passthrough_format(v->fourcc);
-    uint32_t minbpl = (uint32_t)v->w * (uint32_t)(v->outfmt ? coach_format_bpp(v->outfmt) : 0);
+    v->repack = v->outfmt == COACH_FMT_NONE && repack_format(v->fourcc) != COACH_FMT_NONE;
+    if (v->repack)
+        v->outfmt = repack_format(v->fourcc);
+    uint32_t minbpl = (uint32_t)v->w * (uint32_t)src_bpp(v->fourcc);
     v->bpl = f.fmt.pix.bytesperline >= minbpl ? f.fmt.pix.bytesperline : minbpl;
     v->sizeimage = f.fmt.pix.sizeimage;
     cap_v4l2_colour(f.fmt.pix.colorspace, f.fmt.pix.ycbcr_enc, f.fmt.pix.quantization, &v->matrix, &v->range);
-    if (v->outfmt != COACH_FMT_NONE) {
-        size_t rows = v->outfmt == COACH_FMT_NV12 ? (size_t)v->h + ((size_t)v->h + 1) / 2 : (size_t)v->h;
-        v->out_bytes = (size_t)v->bpl * rows;
+    size_t ch = ((size_t)v->h + 1) / 2; /* chroma rows of 4:2:0 formats */
+    if (v->outfmt != COACH_FMT_NONE && !v->repack) {
+        v->out_stride = (int)v->bpl;
+        v->out_bytes = v->in_bytes = (size_t)v->bpl * (v->outfmt == COACH_FMT_NV12 ? (size_t)v->h + ch : (size_t)v->h);
+    } else if (v->outfmt == COACH_FMT_YUYV) {
+        v->out_stride = v->w * 2;
+        v->out_bytes = (size_t)v->out_stride * (size_t)v->h;
+        v->in_bytes = (size_t)v->bpl * (size_t)v->h;
+    } else if (v->outfmt == COACH_FMT_NV12) {
+        v->out_stride = (v->w + 1) & ~1;
+        v->out_bytes = (size_t)v->out_stride * ((size_t)v->h + ch);
+        v->in_bytes = v->fourcc == V4L2_PIX_FMT_NV21 ? (size_t)v->bpl * ((size_t)v->h + ch)
+                                                     : (size_t)v->bpl * (size_t)v->h + 2 * (size_t)(v->bpl / 2) * ch;
     } else {
+        v->out_stride = v->w * 3;
         v->out_bytes = (size_t)v->w * (size_t)v->h * 3;
+        v->in_bytes = 0;
         v->conv = cap_v4l2_conv_create(io, v->fd);
         if (!v->conv) {
             snprintf(err, errlen, "%s: cannot start the libv4lconvert converter", v->node);
@@ -926,13 +1037,16 @@ static int v4l2_produce(cap_source *s, cap_mailbox *mb, cap_frame *meta)
     }
     memset(meta, 0, sizeof *meta);
     if (v->outfmt != COACH_FMT_NONE) {
-        if (used < v->out_bytes) { /* a short frame: the driver's problem, skip it */
+        if (used < v->in_bytes) { /* a short frame: the driver's problem, skip it */
             rc = -EAGAIN;
             goto requeue;
         }
-        memcpy(dst, src, v->out_bytes);
+        if (v->repack)
+            repack(v->fourcc, v->w, v->h, v->bpl, src, dst, v->out_stride);
+        else
+            memcpy(dst, src, v->out_bytes);
         meta->view.format = v->outfmt;
-        meta->view.stride = (int)v->bpl;
+        meta->view.stride = v->out_stride;
     } else {
         int r = cap_v4l2_conv_rgb24(v->conv, v->fourcc, v->w, v->h, v->bpl, v->sizeimage, src, used, dst,
                                     v->out_bytes);

@@ -81,6 +81,9 @@ typedef struct cap_v4l2_pick {
  * through as it is (YUYV, NV12), higher costs more per frame; -1 means we
  * cannot use it at all (compressed video, metadata, unknown layouts). */
 int cap_v4l2_format_cost(uint32_t fourcc);
+/* How a usable format reaches the analysis: 1 as it comes, 2 reordered
+ * into YUYV/NV12, 0 converted to RGB24 by libv4lconvert; -1 not at all. */
+int cap_v4l2_format_path(uint32_t fourcc);
 
 /* Enumerates the usable modes of an open device (VIDIOC_ENUM_FMT,
  * ENUM_FRAMESIZES, ENUM_FRAMEINTERVALS; stepwise sizes become a few

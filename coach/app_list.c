@@ -43,7 +43,8 @@ static void print_camera(FILE *out, const cap_camera_info *c)
         char cc[8];
         if (i == 0 || m->fourcc != last)
             fprintf(out, "  %-4s  %s — %s\n", cap_fourcc_str(m->fourcc, cc), m->desc,
-                    m->passthrough ? "analysed as it comes" : "converted to RGB first");
+                    m->passthrough == 1 ? "analysed as it comes" :
+                    m->passthrough == 2 ? "reordered, colour kept as sent" : "decoded or converted to RGB first");
         last = m->fourcc;
         fprintf(out, "        %5dx%-5d ", m->w, m->h);
         print_rates(out, m);

@@ -1141,6 +1141,832 @@ static void test_still_folder_errors(void **state)
 
 /* ==== section B ==== */
 
+#include <linux/videodev2.h>
+#include <sys/eventfd.h>
+#include <sys/mman.h>
+
+#include "capture/v4l2_internal.h"
+
+/* ---- a fake V4L2 device behind the ioctl seam ----
+ * It answers the ioctls as the V4L2 API specification (kernel.org,
+ * "Video for Linux API", sections on VIDIOC_ENUM_FMT, ENUM_FRAMESIZES,
+ * ENUM_FRAMEINTERVALS, S_FMT, REQBUFS, QBUF/DQBUF) describes them: frame
+ * intervals are seconds as numerator/denominator, so fps = den/num. */
+
+typedef struct fk_mode {
+    uint32_t fourcc;
+    int w, h;
+    int fps[8];                 /* discrete rates, 0-terminated */
+} fk_mode;
+
+typedef struct fk_dev {
+    const fk_mode *modes;
+    int nmodes;
+    uint32_t emulated;          /* a fourcc listed with V4L2_FMT_FLAG_EMULATED */
+    uint32_t stepwise;          /* a fourcc whose sizes are a stepwise range   */
+    uint32_t caps;              /* device_caps (0: video capture + streaming)  */
+    int open_errno, s_fmt_errno, dqbuf_errno;
+    mode_t stat_mode;           /* 0: a character device                       */
+    uint32_t colorspace, ycbcr_enc, quantization;
+    const uint8_t *frame;       /* what each dequeued buffer holds             */
+    size_t frame_len;
+    /* state */
+    struct v4l2_pix_format cur;
+    struct v4l2_fract tpf;
+    int nbuf, queued[4], streaming;
+    uint8_t *mem[4];
+    size_t len;
+    int open_fds, maps, frames;
+} fk_dev;
+
+static fk_dev *g_fk;
+
+static int fk_open(const char *path, int flags)
+{
+    (void)path;
+    (void)flags;
+    if (g_fk->open_errno) {
+        errno = g_fk->open_errno;
+        return -1;
+    }
+    g_fk->open_fds++;
+    return eventfd(0, EFD_CLOEXEC | EFD_NONBLOCK); /* a real descriptor, so poll() works */
+}
+
+static int fk_close(int fd)
+{
+    g_fk->open_fds--;
+    return close(fd);
+}
+
+static void *fk_mmap(void *addr, size_t len, int prot, int flags, int fd, int64_t off)
+{
+    (void)addr;
+    (void)prot;
+    (void)flags;
+    (void)fd;
+    int i = (int)(off >> 20);
+    if (i < 0 || i >= g_fk->nbuf || len != g_fk->len) {
+        errno = EINVAL;
+        return MAP_FAILED;
+    }
+    g_fk->maps++;
+    return g_fk->mem[i];
+}
+
+static int fk_munmap(void *addr, size_t len)
+{
+    (void)addr;
+    (void)len;
+    g_fk->maps--;
+    return 0;
+}
+
+static int fk_stat(const char *path, struct stat *st)
+{
+    (void)path;
+    memset(st, 0, sizeof *st);
+    st->st_mode = g_fk->stat_mode ? g_fk->stat_mode : (S_IFCHR | 0660);
+    return 0;
+}
+
+static uint32_t fk_nth_fourcc(int idx)
+{
+    int seen = 0;
+    for (int i = 0; i < g_fk->nmodes; i++) {
+        int first = 1;
+        for (int j = 0; j < i; j++)
+            if (g_fk->modes[j].fourcc == g_fk->modes[i].fourcc)
+                first = 0;
+        if (first && seen++ == idx)
+            return g_fk->modes[i].fourcc;
+    }
+    return 0;
+}
+
+static const fk_mode *fk_find(uint32_t fourcc, int w, int h)
+{
+    for (int i = 0; i < g_fk->nmodes; i++)
+        if (g_fk->modes[i].fourcc == fourcc && (g_fk->stepwise == fourcc || (g_fk->modes[i].w == w && g_fk->modes[i].h == h)))
+            return &g_fk->modes[i];
+    return NULL;
+}
+
+static uint32_t fk_bpl(uint32_t fourcc, int w)
+{
+    switch (fourcc) {
+    case V4L2_PIX_FMT_YUYV: case V4L2_PIX_FMT_UYVY: case V4L2_PIX_FMT_YVYU: return (uint32_t)w * 2;
+    case V4L2_PIX_FMT_RGB24: case V4L2_PIX_FMT_BGR24: return (uint32_t)w * 3;
+    case V4L2_PIX_FMT_NV12: case V4L2_PIX_FMT_NV21: case V4L2_PIX_FMT_YUV420: case V4L2_PIX_FMT_YVU420:
+    case V4L2_PIX_FMT_GREY: return (uint32_t)w;
+    default: return 0; /* compressed */
+    }
+}
+
+static int fk_ioctl(int fd, unsigned long req, void *arg)
+{
+    (void)fd;
+    fk_dev *d = g_fk;
+    switch (req) {
+    case VIDIOC_QUERYCAP: {
+        struct v4l2_capability *c = arg;
+        memset(c, 0, sizeof *c);
+        snprintf((char *)c->driver, sizeof c->driver, "fakecam");
+        snprintf((char *)c->card, sizeof c->card, "Bench Camera");
+        snprintf((char *)c->bus_info, sizeof c->bus_info, "usb-0000:00:14.0-2");
+        c->device_caps = d->caps ? d->caps : (V4L2_CAP_VIDEO_CAPTURE | V4L2_CAP_STREAMING);
+        c->capabilities = c->device_caps | V4L2_CAP_DEVICE_CAPS;
+        return 0;
+    }
+    case VIDIOC_ENUM_FMT: {
+        struct v4l2_fmtdesc *f = arg;
+        int n = 0;
+        while (fk_nth_fourcc(n))
+            n++;
+        uint32_t cc = (int)f->index < n ? fk_nth_fourcc((int)f->index)
+                      : (f->index == (uint32_t)n && d->emulated) ? d->emulated : 0;
+        if (!cc || f->type != V4L2_BUF_TYPE_VIDEO_CAPTURE)
+            break;
+        f->pixelformat = cc;
+        f->flags = cc == d->emulated ? V4L2_FMT_FLAG_EMULATED : 0;
+        snprintf((char *)f->description, sizeof f->description, "fake %.4s", (const char *)&cc);
+        return 0;
+    }
+    case VIDIOC_ENUM_FRAMESIZES: {
+        struct v4l2_frmsizeenum *s = arg;
+        if (s->pixel_format == d->stepwise) {
+            if (s->index)
+                break;
+            s->type = V4L2_FRMSIZE_TYPE_STEPWISE;
+            s->stepwise = (struct v4l2_frmsize_stepwise){160, 3840, 16, 120, 2160, 8};
+            return 0;
+        }
+        uint32_t k = 0;
+        for (int i = 0; i < d->nmodes; i++)
+            if (d->modes[i].fourcc == s->pixel_format && k++ == s->index) {
+                s->type = V4L2_FRMSIZE_TYPE_DISCRETE;
+                s->discrete.width = (uint32_t)d->modes[i].w;
+                s->discrete.height = (uint32_t)d->modes[i].h;
+                return 0;
+            }
+        break;
+    }
+    case VIDIOC_ENUM_FRAMEINTERVALS: {
+        struct v4l2_frmivalenum *fi = arg;
+        const fk_mode *m = fk_find(fi->pixel_format, (int)fi->width, (int)fi->height);
+        if (!m || fi->index >= 8 || !m->fps[fi->index])
+            break;
+        fi->type = V4L2_FRMIVAL_TYPE_DISCRETE;
+        fi->discrete.numerator = 1;
+        fi->discrete.denominator = (uint32_t)m->fps[fi->index];
+        return 0;
+    }
+    case VIDIOC_TRY_FMT:
+    case VIDIOC_S_FMT: {
+        struct v4l2_format *f = arg;
+        if (req == VIDIOC_S_FMT && d->s_fmt_errno) {
+            errno = d->s_fmt_errno;
+            return -1;
+        }
+        const fk_mode *m = fk_find(f->fmt.pix.pixelformat, (int)f->fmt.pix.width, (int)f->fmt.pix.height);
+        if (!m)
+            m = &d->modes[0];
+        struct v4l2_pix_format p;
+        memset(&p, 0, sizeof p);
+        p.pixelformat = m->fourcc;
+        p.width = d->stepwise == m->fourcc ? f->fmt.pix.width : (uint32_t)m->w;
+        p.height = d->stepwise == m->fourcc ? f->fmt.pix.height : (uint32_t)m->h;
+        p.field = V4L2_FIELD_NONE;
+        p.bytesperline = fk_bpl(p.pixelformat, (int)p.width);
+        p.sizeimage = !p.bytesperline ? p.width * p.height /* compressed: room for one JPEG */
+                      : p.bytesperline == p.width && p.pixelformat != V4L2_PIX_FMT_GREY ? p.bytesperline * p.height * 3 / 2
+                      : p.bytesperline * p.height;
+        p.colorspace = d->colorspace;
+        p.ycbcr_enc = d->ycbcr_enc;
+        p.quantization = d->quantization;
+        f->fmt.pix = p;
+        if (req == VIDIOC_S_FMT)
+            d->cur = p;
+        return 0;
+    }
+    case VIDIOC_G_FMT: {
+        struct v4l2_format *f = arg;
+        f->fmt.pix = d->cur;
+        return 0;
+    }
+    case VIDIOC_S_PARM:
+    case VIDIOC_G_PARM: {
+        struct v4l2_streamparm *p = arg;
+        if (req == VIDIOC_S_PARM)
+            d->tpf = p->parm.capture.timeperframe;
+        p->parm.capture.capability = V4L2_CAP_TIMEPERFRAME;
+        p->parm.capture.timeperframe = d->tpf;
+        return 0;
+    }
+    case VIDIOC_REQBUFS: {
+        struct v4l2_requestbuffers *r = arg;
+        for (int i = 0; i < d->nbuf; i++)
+            free(d->mem[i]);
+        d->nbuf = r->count > 4 ? 4 : (int)r->count;
+        r->count = (uint32_t)d->nbuf;
+        d->len = d->cur.sizeimage;
+        for (int i = 0; i < d->nbuf; i++) {
+            d->mem[i] = calloc(1, d->len);
+            d->queued[i] = 0;
+        }
+        return 0;
+    }
+    case VIDIOC_QUERYBUF: {
+        struct v4l2_buffer *b = arg;
+        if ((int)b->index >= d->nbuf)
+            break;
+        b->length = (uint32_t)d->len;
+        b->m.offset = b->index << 20;
+        return 0;
+    }
+    case VIDIOC_QBUF: {
+        struct v4l2_buffer *b = arg;
+        if ((int)b->index >= d->nbuf)
+            break;
+        d->queued[b->index] = 1;
+        return 0;
+    }
+    case VIDIOC_DQBUF: {
+        struct v4l2_buffer *b = arg;
+        if (d->dqbuf_errno) {
+            errno = d->dqbuf_errno;
+            return -1;
+        }
+        for (int i = 0; i < d->nbuf; i++) {
+            if (!d->queued[i] || !d->streaming)
+                continue;
+            d->queued[i] = 0;
+            size_t n = d->frame_len < d->len ? d->frame_len : d->len;
+            memcpy(d->mem[i], d->frame, n);
+            b->index = (uint32_t)i;
+            b->bytesused = (uint32_t)n;
+            b->flags = V4L2_BUF_FLAG_TIMESTAMP_MONOTONIC;
+            b->timestamp.tv_sec = 1000 + d->frames / 25;
+            b->timestamp.tv_usec = (d->frames % 25) * 40000;
+            b->sequence = (uint32_t)d->frames++;
+            return 0;
+        }
+        errno = EAGAIN;
+        return -1;
+    }
+    case VIDIOC_STREAMON:
+        d->streaming = 1;
+        return 0;
+    case VIDIOC_STREAMOFF:
+        d->streaming = 0;
+        return 0;
+    default:
+        break;
+    }
+    errno = EINVAL;
+    return -1;
+}
+
+static const cap_v4l2_io k_fk_io = {fk_open, fk_close, fk_ioctl, fk_mmap, fk_munmap, fk_stat};
+
+static void fk_release(fk_dev *d)
+{
+    for (int i = 0; i < d->nbuf; i++)
+        free(d->mem[i]);
+    d->nbuf = 0;
+}
+
+/* A USB webcam as they commonly come (common practice, USB 2.0 bandwidth):
+ * YUYV fast only at small sizes, MJPEG fast at every size, plus 4K MJPEG. */
+static const fk_mode k_webcam[] = {
+    {V4L2_PIX_FMT_YUYV, 640, 480, {30, 25, 15, 0}},
+    {V4L2_PIX_FMT_YUYV, 1280, 720, {10, 5, 0}},
+    {V4L2_PIX_FMT_YUYV, 1920, 1080, {5, 0}},
+    {V4L2_PIX_FMT_MJPEG, 640, 480, {30, 25, 15, 0}},
+    {V4L2_PIX_FMT_MJPEG, 1280, 720, {30, 25, 15, 0}},
+    {V4L2_PIX_FMT_MJPEG, 1920, 1080, {30, 25, 15, 0}},
+    {V4L2_PIX_FMT_MJPEG, 3840, 2160, {30, 0}},
+    {V4L2_PIX_FMT_H264, 1920, 1080, {30, 0}},  /* compressed video: never used */
+};
+
+static int fk_choose(fk_dev *d, cap_v4l2_want want, cap_v4l2_mode *chosen, double *fps)
+{
+    g_fk = d;
+    static cap_v4l2_mode modes[CAP_V4L2_MAX_MODES];
+    int n = cap_v4l2_enum_modes(&k_fk_io, 0, modes, CAP_V4L2_MAX_MODES);
+    if (n <= 0)
+        return n ? n : -ENOENT;
+    cap_v4l2_pick pick;
+    int r = cap_v4l2_choose(modes, n, &want, &pick);
+    if (r == 0) {
+        *chosen = modes[pick.mode];
+        *fps = pick.rate.num ? (double)pick.rate.den / pick.rate.num : 0;
+    }
+    return r;
+}
+
+static void test_v4l2_enum_skips_unusable(void **state)
+{
+    (void)state;
+    fk_dev d = {.modes = k_webcam, .nmodes = 8, .emulated = V4L2_PIX_FMT_RGB24};
+    g_fk = &d;
+    cap_v4l2_mode modes[32];
+    int n = cap_v4l2_enum_modes(&k_fk_io, 0, modes, 32);
+    /* 7 YUYV/MJPEG modes; H.264 (compressed video) and the format libv4l2
+     * only emulates (V4L2_FMT_FLAG_EMULATED) are left out */
+    assert_int_equal(n, 7);
+    for (int i = 0; i < n; i++) {
+        assert_true(modes[i].fourcc == V4L2_PIX_FMT_YUYV || modes[i].fourcc == V4L2_PIX_FMT_MJPEG);
+        assert_true(modes[i].nrates >= 1);
+        for (int k = 1; k < modes[i].nrates; k++) /* fastest first */
+            assert_true(cap_v4l2_mode_fps(&modes[i]) >= (double)modes[i].rates[k].den / modes[i].rates[k].num);
+    }
+    /* fps = denominator / numerator of the frame interval (V4L2 spec) */
+    assert_true(fabs(cap_v4l2_mode_fps(&modes[0]) - 30.0) < 1e-9);
+}
+
+static void test_v4l2_choose_default_size(void **state)
+{
+    (void)state;
+    fk_dev d = {.modes = k_webcam, .nmodes = 8};
+    cap_v4l2_mode m;
+    double fps;
+    /* default: the largest size at >= 25 fps, capped at 1920x1080 (the
+     * project's rule): 1080p, which only MJPEG gives at that rate; 4K is
+     * offered at 30 fps but is over the cap */
+    assert_int_equal(fk_choose(&d, (cap_v4l2_want){0}, &m, &fps), 0);
+    assert_int_equal(m.w, 1920);
+    assert_int_equal(m.h, 1080);
+    assert_int_equal(m.fourcc, V4L2_PIX_FMT_MJPEG);
+    assert_true(fabs(fps - 30) < 1e-9);
+}
+
+static void test_v4l2_choose_cheapest_format(void **state)
+{
+    (void)state;
+    fk_dev d = {.modes = k_webcam, .nmodes = 8};
+    cap_v4l2_mode m;
+    double fps;
+    /* at 640x480 both reach 30 fps: YUYV passes through, MJPEG needs a decode */
+    assert_int_equal(fk_choose(&d, (cap_v4l2_want){.w = 640, .h = 480}, &m, &fps), 0);
+    assert_int_equal(m.fourcc, V4L2_PIX_FMT_YUYV);
+    assert_true(fabs(fps - 30) < 1e-9);
+    /* at 1280x720 YUYV gives 10 fps only: MJPEG at 30 wins */
+    assert_int_equal(fk_choose(&d, (cap_v4l2_want){.w = 1280, .h = 720}, &m, &fps), 0);
+    assert_int_equal(m.fourcc, V4L2_PIX_FMT_MJPEG);
+    /* a wanted fourcc is honoured, and one not offered is refused */
+    assert_int_equal(fk_choose(&d, (cap_v4l2_want){.w = 1280, .h = 720, .fourcc = V4L2_PIX_FMT_YUYV}, &m, &fps), 0);
+    assert_int_equal(m.fourcc, V4L2_PIX_FMT_YUYV);
+    assert_true(fabs(fps - 10) < 1e-9);
+    assert_int_equal(fk_choose(&d, (cap_v4l2_want){.fourcc = V4L2_PIX_FMT_NV12}, &m, &fps), -ENOENT);
+}
+
+static void test_v4l2_choose_nearest_size_and_rate(void **state)
+{
+    (void)state;
+    fk_dev d = {.modes = k_webcam, .nmodes = 8};
+    cap_v4l2_mode m;
+    double fps;
+    /* 800x600 is not offered: 640x480 is nearer than 1280x720 */
+    assert_int_equal(fk_choose(&d, (cap_v4l2_want){.w = 800, .h = 600}, &m, &fps), 0);
+    assert_int_equal(m.w, 640);
+    assert_int_equal(m.h, 480);
+    /* 24 fps wanted: 25 is the nearest offered rate */
+    assert_int_equal(fk_choose(&d, (cap_v4l2_want){.w = 640, .h = 480, .fps = 24}, &m, &fps), 0);
+    assert_true(fabs(fps - 25) < 1e-9);
+    /* 60 wanted at 1080p: the fastest there is, 30 */
+    assert_int_equal(fk_choose(&d, (cap_v4l2_want){.w = 1920, .h = 1080, .fps = 60}, &m, &fps), 0);
+    assert_true(fabs(fps - 30) < 1e-9);
+}
+
+static void test_v4l2_choose_slow_and_stepwise(void **state)
+{
+    (void)state;
+    /* a camera that never reaches 25 fps: the fastest size, not the largest */
+    static const fk_mode slow[] = {
+        {V4L2_PIX_FMT_YUYV, 640, 480, {15, 0}},
+        {V4L2_PIX_FMT_YUYV, 1280, 720, {8, 0}},
+    };
+    fk_dev d = {.modes = slow, .nmodes = 2};
+    cap_v4l2_mode m;
+    double fps;
+    assert_int_equal(fk_choose(&d, (cap_v4l2_want){0}, &m, &fps), 0);
+    assert_int_equal(m.w, 640);
+    assert_true(fabs(fps - 15) < 1e-9);
+    /* an HDMI capture card with a stepwise size range (V4L2 spec:
+     * V4L2_FRMSIZE_TYPE_STEPWISE): Full HD is on the grid and is taken */
+    static const fk_mode card[] = {{V4L2_PIX_FMT_NV12, 0, 0, {60, 30, 0}}};
+    fk_dev c = {.modes = card, .nmodes = 1, .stepwise = V4L2_PIX_FMT_NV12};
+    assert_int_equal(fk_choose(&c, (cap_v4l2_want){0}, &m, &fps), 0);
+    assert_int_equal(m.w, 1920);
+    assert_int_equal(m.h, 1080);
+    assert_true(fabs(fps - 30) < 1e-9);
+    assert_int_equal(fk_choose(&c, (cap_v4l2_want){.w = 1280, .h = 720, .fps = 60}, &m, &fps), 0);
+    assert_int_equal(m.w, 1280);
+    assert_true(fabs(fps - 60) < 1e-9);
+}
+
+static void assert_one_line_naming(const char *err, const char *dev, const char *cause)
+{
+    assert_non_null(strstr(err, dev));
+    assert_true(strncmp(err, dev, strlen(dev)) == 0);
+    assert_null(strchr(err, '\n'));
+    if (!strstr(err, cause))
+        fail_msg("'%s' lacks '%s'", err, cause);
+}
+
+static void test_v4l2_errno_messages(void **state)
+{
+    (void)state;
+    char buf[320];
+    cap_v4l2_describe_error(buf, sizeof buf, "/dev/video0", "open", EACCES);
+    assert_one_line_naming(buf, "/dev/video0", "permission denied");
+    assert_non_null(strstr(buf, "'video' group"));
+    assert_non_null(strstr(buf, "udev rule"));
+    cap_v4l2_describe_error(buf, sizeof buf, "/dev/video0", "set the format", EBUSY);
+    assert_one_line_naming(buf, "/dev/video0", "another program");
+    cap_v4l2_describe_error(buf, sizeof buf, "/dev/video7", "open", ENOENT);
+    assert_one_line_naming(buf, "/dev/video7", "no such device");
+    cap_v4l2_describe_error(buf, sizeof buf, "/dev/null", "query the device", ENOTTY);
+    assert_one_line_naming(buf, "/dev/null", "not a V4L2 video device");
+    cap_v4l2_describe_error(buf, sizeof buf, "/tmp", "open", EISDIR);
+    assert_one_line_naming(buf, "/tmp", "is a directory");
+    /* ENOSPC from STREAMON is how UVC reports missing USB bandwidth
+     * (Linux uvcvideo driver, uvc_video.c, recalled from memory) */
+    cap_v4l2_describe_error(buf, sizeof buf, "/dev/video0", "start streaming", ENOSPC);
+    assert_one_line_naming(buf, "/dev/video0", "USB bandwidth");
+    cap_v4l2_describe_error(buf, sizeof buf, "/dev/video0", "open", ELOOP);
+    assert_one_line_naming(buf, "/dev/video0", strerror(ELOOP));
+    /* a tiny buffer still gets a terminated prefix */
+    char small[12];
+    cap_v4l2_describe_error(small, sizeof small, "/dev/video0", "open", EACCES);
+    assert_int_equal(strlen(small), sizeof small - 1);
+}
+
+static void test_v4l2_open_bad_devices(void **state)
+{
+    (void)state;
+    static const fk_mode one[] = {{V4L2_PIX_FMT_YUYV, 640, 480, {30, 0}}};
+    char err[320];
+    cap_source_opts o = {0};
+    fk_dev d = {.modes = one, .nmodes = 1, .open_errno = EACCES};
+    g_fk = &d;
+    assert_null(cap_v4l2_open_io(&k_fk_io, "/dev/video0", &o, err, sizeof err));
+    assert_one_line_naming(err, "/dev/video0", "permission denied");
+
+    d = (fk_dev){.modes = one, .nmodes = 1, .stat_mode = S_IFDIR | 0755};
+    assert_null(cap_v4l2_open_io(&k_fk_io, "/srv/shots", &o, err, sizeof err));
+    assert_one_line_naming(err, "/srv/shots", "is a directory");
+
+    d = (fk_dev){.modes = one, .nmodes = 1, .stat_mode = S_IFREG | 0644};
+    assert_null(cap_v4l2_open_io(&k_fk_io, "/home/a/clip.raw", &o, err, sizeof err));
+    assert_one_line_naming(err, "/home/a/clip.raw", "not a camera");
+
+    /* a UVC camera's second node carries metadata only (V4L2_CAP_META_CAPTURE) */
+    d = (fk_dev){.modes = one, .nmodes = 1, .caps = V4L2_CAP_META_CAPTURE | V4L2_CAP_STREAMING};
+    assert_null(cap_v4l2_open_io(&k_fk_io, "/dev/video1", &o, err, sizeof err));
+    assert_one_line_naming(err, "/dev/video1", "without video capture (metadata)");
+    assert_int_equal(d.open_fds, 0);
+
+    d = (fk_dev){.modes = one, .nmodes = 1, .s_fmt_errno = EBUSY};
+    assert_null(cap_v4l2_open_io(&k_fk_io, "/dev/video0", &o, err, sizeof err));
+    assert_one_line_naming(err, "/dev/video0", "busy");
+    assert_int_equal(d.open_fds, 0);
+    fk_release(&d);
+}
+
+/* Streams YUYV from the fake device into a mailbox: the frame passes through
+ * with the driver's colour information and timestamp; an unplug reads as
+ * -ENODEV; destroy leaves no descriptor or mapping behind. */
+static void test_v4l2_stream_passthrough(void **state)
+{
+    (void)state;
+    static const fk_mode one[] = {{V4L2_PIX_FMT_YUYV, 64, 48, {30, 25, 0}}};
+    static uint8_t frame[64 * 48 * 2];
+    for (size_t i = 0; i < sizeof frame; i++)
+        frame[i] = (uint8_t)(i * 7);
+    fk_dev d = {.modes = one, .nmodes = 1, .frame = frame, .frame_len = sizeof frame,
+                .colorspace = V4L2_COLORSPACE_REC709, .quantization = V4L2_QUANTIZATION_FULL_RANGE};
+    g_fk = &d;
+    char err[320];
+    cap_source_opts o = {.fps = 25};
+    cap_source *s = cap_v4l2_open_io(&k_fk_io, "/dev/video0", &o, err, sizeof err);
+    assert_non_null(s);
+    assert_int_equal(d.open_fds, 1);
+    assert_int_equal(d.maps, d.nbuf);
+    assert_true(d.nbuf >= 2);
+    assert_true(fabs(s->fps - 25) < 1e-9);
+    assert_int_equal(d.tpf.numerator, 1);
+    assert_int_equal(d.tpf.denominator, 25);
+    assert_int_equal(s->max_bytes, sizeof frame);
+    assert_true(s->ops->poll_fd(s) >= 0);
+    cap_mailbox *mb = cap_mailbox_create(s->max_bytes);
+    assert_non_null(mb);
+    for (int k = 0; k < 3; k++) {
+        cap_frame f;
+        assert_int_equal(s->ops->produce(s, mb, &f), 0);
+        assert_int_equal(f.view.format, COACH_FMT_YUYV);
+        assert_int_equal(f.view.w, 64);
+        assert_int_equal(f.view.h, 48);
+        assert_int_equal(f.view.stride, 128);
+        assert_memory_equal(f.view.data, frame, sizeof frame);
+        /* Rec. 709 colorspace → BT.709 matrix; explicit full range (V4L2 spec, colorspaces) */
+        assert_int_equal(f.view.matrix, COACH_MATRIX_BT709);
+        assert_int_equal(f.view.range, COACH_RANGE_FULL);
+        assert_int_equal(f.seq, (uint64_t)k);
+        assert_true(fabs(f.t_capture - (1000.0 + k * 0.04)) < 1e-6); /* the driver's timestamp */
+        cap_mailbox_publish(mb, &f);
+    }
+    d.dqbuf_errno = ENODEV; /* unplugged: VIDIOC_DQBUF fails with ENODEV (V4L2 spec) */
+    cap_frame f;
+    assert_int_equal(s->ops->produce(s, mb, &f), -ENODEV);
+    assert_non_null(strstr(s->note, "waiting for the same camera"));
+    cap_source_destroy(s);
+    assert_int_equal(d.open_fds, 0);
+    assert_int_equal(d.maps, 0);
+    cap_mailbox_destroy(mb);
+    fk_release(&d);
+}
+
+static void test_v4l2_colour_defaults(void **state)
+{
+    (void)state;
+    coach_matrix m;
+    coach_range r;
+    /* Defaults per the V4L2 spec's colorspace section (videodev2.h
+     * V4L2_MAP_YCBCR_ENC_DEFAULT / V4L2_MAP_QUANTIZATION_DEFAULT): sRGB →
+     * BT.601 limited; JPEG → BT.601 full; Rec. 709 → BT.709 limited */
+    cap_v4l2_colour(V4L2_COLORSPACE_SRGB, V4L2_YCBCR_ENC_DEFAULT, V4L2_QUANTIZATION_DEFAULT, &m, &r);
+    assert_int_equal(m, COACH_MATRIX_BT601);
+    assert_int_equal(r, COACH_RANGE_LIMITED);
+    cap_v4l2_colour(V4L2_COLORSPACE_JPEG, V4L2_YCBCR_ENC_DEFAULT, V4L2_QUANTIZATION_DEFAULT, &m, &r);
+    assert_int_equal(m, COACH_MATRIX_BT601);
+    assert_int_equal(r, COACH_RANGE_FULL);
+    cap_v4l2_colour(V4L2_COLORSPACE_REC709, V4L2_YCBCR_ENC_DEFAULT, V4L2_QUANTIZATION_DEFAULT, &m, &r);
+    assert_int_equal(m, COACH_MATRIX_BT709);
+    assert_int_equal(r, COACH_RANGE_LIMITED);
+    cap_v4l2_colour(V4L2_COLORSPACE_SRGB, V4L2_YCBCR_ENC_709, V4L2_QUANTIZATION_FULL_RANGE, &m, &r);
+    assert_int_equal(m, COACH_MATRIX_BT709);
+    assert_int_equal(r, COACH_RANGE_FULL);
+}
+
+static cap_dev_id dev_id(const char *serial, const char *id_path, const char *parent, int index,
+                         const char *card, const char *bus, const char *node)
+{
+    cap_dev_id id;
+    memset(&id, 0, sizeof id);
+    snprintf(id.serial, sizeof id.serial, "%s", serial);
+    snprintf(id.id_path, sizeof id.id_path, "%s", id_path);
+    snprintf(id.parent, sizeof id.parent, "%s", parent);
+    snprintf(id.card, sizeof id.card, "%s", card);
+    snprintf(id.bus, sizeof id.bus, "%s", bus);
+    snprintf(id.node, sizeof id.node, "%s", node);
+    id.index = index;
+    return id;
+}
+
+static void test_replug_matcher(void **state)
+{
+    (void)state;
+    cap_dev_id want = dev_id("Acme_Desk_Cam_0A1B", "pci-0000:00:14.0-usb-0:2:1.0",
+                             "/sys/devices/pci0000:00/0000:00:14.0/usb1/1-2/1-2:1.0", 0, "Desk Cam", "usb-0000:00:14.0-2",
+                             "/dev/video0");
+    /* the same camera back under another node number */
+    cap_dev_id h = want;
+    snprintf(h.node, sizeof h.node, "/dev/video4");
+    assert_true(cap_dev_match(&want, &h));
+    /* moved to another port: the serial follows it */
+    h = dev_id("Acme_Desk_Cam_0A1B", "pci-0000:00:14.0-usb-0:3:1.0", "/sys/devices/x/1-3:1.0", 0, "Desk Cam",
+               "usb-0000:00:14.0-3", "/dev/video2");
+    assert_true(cap_dev_match(&want, &h));
+    /* an identical model with another serial in the same port is another camera */
+    h = dev_id("Acme_Desk_Cam_77FF", want.id_path, want.parent, 0, "Desk Cam", want.bus, "/dev/video0");
+    assert_false(cap_dev_match(&want, &h));
+    /* the same camera's metadata node (index 1) is not its capture node */
+    h = want;
+    h.index = 1;
+    assert_false(cap_dev_match(&want, &h));
+    /* no serial: the port (ID_PATH) decides */
+    cap_dev_id w2 = dev_id("", "pci-0000:00:14.0-usb-0:2:1.0", "", 0, "Desk Cam", "usb-0000:00:14.0-2", "/dev/video0");
+    h = dev_id("", "pci-0000:00:14.0-usb-0:2:1.0", "", 0, "Desk Cam", "usb-0000:00:14.0-2", "/dev/video3");
+    assert_true(cap_dev_match(&w2, &h));
+    h = dev_id("", "pci-0000:00:14.0-usb-0:4:1.0", "", 0, "Desk Cam", "usb-0000:00:14.0-4", "/dev/video3");
+    assert_false(cap_dev_match(&w2, &h));
+    /* no udev daemon (no ID_PATH, no serial): the parent device and index */
+    cap_dev_id w3 = dev_id("", "", "/sys/devices/platform/vivid.0", 0, "vivid", "platform:vivid-000", "/dev/video0");
+    h = dev_id("", "", "/sys/devices/platform/vivid.0", 0, "vivid", "platform:vivid-000", "/dev/video5");
+    assert_true(cap_dev_match(&w3, &h));
+    h = dev_id("", "", "/sys/devices/platform/vivid.1", 0, "vivid", "platform:vivid-001", "/dev/video5");
+    assert_false(cap_dev_match(&w3, &h));
+    /* nothing but QUERYCAP: bus and card */
+    cap_dev_id w4 = dev_id("", "", "", -1, "Desk Cam", "usb-0000:00:14.0-2", "/dev/video0");
+    h = dev_id("", "", "", -1, "Desk Cam", "usb-0000:00:14.0-2", "/dev/video1");
+    assert_true(cap_dev_match(&w4, &h));
+    h = dev_id("", "", "", -1, "Other Cam", "usb-0000:00:14.0-2", "/dev/video1");
+    assert_false(cap_dev_match(&w4, &h));
+    /* nothing known at all never matches */
+    cap_dev_id none = dev_id("", "", "", -1, "", "", "");
+    assert_false(cap_dev_match(&none, &none));
+}
+
+/* A test image with colour, gradients and edges. */
+static SDL_Surface *make_scene_rgb24(int w, int h)
+{
+    SDL_Surface *s = SDL_CreateRGBSurfaceWithFormat(0, w, h, 24, SDL_PIXELFORMAT_RGB24);
+    if (!s)
+        return NULL;
+    for (int y = 0; y < h; y++) {
+        uint8_t *row = (uint8_t *)s->pixels + (size_t)y * (size_t)s->pitch;
+        for (int x = 0; x < w; x++) {
+            int sky = y < h / 2;
+            row[3 * x + 0] = (uint8_t)(sky ? 60 + x * 100 / w : 180);
+            row[3 * x + 1] = (uint8_t)(sky ? 120 + y * 100 / h : 140 - x * 60 / w);
+            row[3 * x + 2] = (uint8_t)(sky ? 220 : 60);
+        }
+    }
+    return s;
+}
+
+static uint8_t *read_all(const char *path, size_t *len)
+{
+    FILE *f = fopen(path, "rb");
+    if (!f)
+        return NULL;
+    fseek(f, 0, SEEK_END);
+    long n = ftell(f);
+    fseek(f, 0, SEEK_SET);
+    uint8_t *b = n > 0 ? malloc((size_t)n) : NULL;
+    if (b && fread(b, 1, (size_t)n, f) != (size_t)n) {
+        free(b);
+        b = NULL;
+    }
+    fclose(f);
+    *len = b ? (size_t)n : 0;
+    return b;
+}
+
+/* MJPEG frames through our libv4lconvert instance, created over the seam
+ * with v4lconvert_create_with_dev_ops() on the fake device, then the whole
+ * source path (DQBUF → convert into the mailbox).  Reference: the same JPEG
+ * decoded by SDL2_image (libjpeg-turbo). */
+static void test_v4l2_mjpeg_conversion(void **state)
+{
+    (void)state;
+    const int w = 96, h = 64;
+    SDL_Surface *img = make_scene_rgb24(w, h);
+    assert_non_null(img);
+    char path[] = "/tmp/vfcoach-mjpeg-XXXXXX";
+    int tfd = mkstemp(path);
+    assert_true(tfd >= 0);
+    close(tfd);
+    assert_int_equal(IMG_SaveJPG(img, path, 90), 0);
+    SDL_FreeSurface(img);
+    size_t jlen = 0;
+    uint8_t *jpeg = read_all(path, &jlen);
+    assert_non_null(jpeg);
+    SDL_Surface *ref0 = IMG_Load(path);
+    unlink(path);
+    assert_non_null(ref0);
+    SDL_Surface *ref = SDL_ConvertSurfaceFormat(ref0, SDL_PIXELFORMAT_RGB24, 0);
+    SDL_FreeSurface(ref0);
+    assert_non_null(ref);
+
+    static const fk_mode mj[] = {{V4L2_PIX_FMT_MJPEG, 96, 64, {30, 0}}};
+    fk_dev d = {.modes = mj, .nmodes = 1, .frame = jpeg, .frame_len = jlen, .colorspace = V4L2_COLORSPACE_JPEG};
+    g_fk = &d;
+    char err[320];
+    cap_source_opts o = {0};
+    cap_source *s = cap_v4l2_open_io(&k_fk_io, "/dev/video0", &o, err, sizeof err);
+    if (!s)
+        fail_msg("%s", err);
+    assert_int_equal(cap_v4l2_source_fourcc(s), V4L2_PIX_FMT_MJPEG);
+    assert_int_equal(s->max_bytes, (size_t)w * h * 3);
+    cap_mailbox *mb = cap_mailbox_create(s->max_bytes);
+    cap_frame f;
+    assert_int_equal(s->ops->produce(s, mb, &f), 0);
+    assert_int_equal(f.view.format, COACH_FMT_RGB24);
+    assert_int_equal(f.view.stride, w * 3);
+    double sum = 0;
+    int worst = 0;
+    for (int y = 0; y < h; y++) {
+        const uint8_t *a = f.view.data + (size_t)y * (size_t)f.view.stride;
+        const uint8_t *b = (const uint8_t *)ref->pixels + (size_t)y * (size_t)ref->pitch;
+        for (int x = 0; x < w * 3; x++) {
+            int dd = abs((int)a[x] - (int)b[x]);
+            sum += dd;
+            if (dd > worst)
+                worst = dd;
+        }
+    }
+    double mean = sum / (w * h * 3);
+    /* two libjpeg decodes of one file differ only by IDCT and chroma
+     * upsampling choices: a few levels at most */
+    if (mean > 1.5 || worst > 16)
+        fail_msg("MJPEG decode differs from SDL2_image: mean %.2f, worst %d", mean, worst);
+    /* a corrupt frame is skipped, not fatal */
+    memset(jpeg + jlen / 2, 0, jlen / 2);
+    int r = s->ops->produce(s, mb, &f);
+    assert_true(r == 0 || r == -EAGAIN);
+    cap_source_destroy(s);
+    assert_int_equal(d.open_fds, 0);
+    assert_int_equal(d.maps, 0);
+    cap_mailbox_destroy(mb);
+    SDL_FreeSurface(ref);
+    free(jpeg);
+    fk_release(&d);
+}
+
+/* UYVY, YVYU, NV21, YU12 and YV12 through the source: reordered into the
+ * YUYV / NV12 byte layouts the V4L2 specification's pixel format pages give
+ * (packed YUV 4:2:2 and planar/semi-planar YUV 4:2:0 tables), colour
+ * information kept (limited range here, as the driver said). */
+static void test_v4l2_repack_layouts(void **state)
+{
+    (void)state;
+    enum { W = 4, H = 4 };
+    uint8_t Y[H][W], Cb[H / 2][W / 2], Cr[H / 2][W / 2];
+    for (int y = 0; y < H; y++)
+        for (int x = 0; x < W; x++)
+            Y[y][x] = (uint8_t)(16 + 10 * y + x);
+    for (int y = 0; y < H / 2; y++)
+        for (int x = 0; x < W / 2; x++) {
+            Cb[y][x] = (uint8_t)(100 + 10 * y + x);
+            Cr[y][x] = (uint8_t)(200 + 10 * y + x);
+        }
+    /* the expected outputs; 4:2:2 uses chroma row y/2 for both rows */
+    uint8_t yuyv[H * W * 2], nv12[W * H + W * H / 2];
+    for (int y = 0; y < H; y++)
+        for (int x = 0; x < W / 2; x++) {
+            uint8_t *d = yuyv + y * W * 2 + x * 4;
+            d[0] = Y[y][2 * x]; d[1] = Cb[y / 2][x]; d[2] = Y[y][2 * x + 1]; d[3] = Cr[y / 2][x];
+        }
+    memcpy(nv12, Y, sizeof Y);
+    for (int y = 0; y < H / 2; y++)
+        for (int x = 0; x < W / 2; x++) {
+            nv12[W * H + y * W + 2 * x] = Cb[y][x];
+            nv12[W * H + y * W + 2 * x + 1] = Cr[y][x];
+        }
+    struct { uint32_t fourcc; const char *spec; uint8_t src[W * H * 2]; size_t len; coach_format out; } cases[5];
+    memset(cases, 0, sizeof cases);
+    cases[0].fourcc = V4L2_PIX_FMT_UYVY; cases[0].spec = "/dev/video0@UYVY";
+    cases[1].fourcc = V4L2_PIX_FMT_YVYU; cases[1].spec = "/dev/video0@YVYU";
+    cases[2].fourcc = V4L2_PIX_FMT_NV21; cases[2].spec = "/dev/video0@NV21";
+    cases[3].fourcc = V4L2_PIX_FMT_YUV420; cases[3].spec = "/dev/video0@YU12";
+    cases[4].fourcc = V4L2_PIX_FMT_YVU420; cases[4].spec = "/dev/video0@YV12";
+    for (int y = 0; y < H; y++)
+        for (int x = 0; x < W / 2; x++) {
+            uint8_t *u = cases[0].src + y * W * 2 + x * 4, *v = cases[1].src + y * W * 2 + x * 4;
+            u[0] = Cb[y / 2][x]; u[1] = Y[y][2 * x]; u[2] = Cr[y / 2][x]; u[3] = Y[y][2 * x + 1];
+            v[0] = Y[y][2 * x]; v[1] = Cr[y / 2][x]; v[2] = Y[y][2 * x + 1]; v[3] = Cb[y / 2][x];
+        }
+    cases[0].len = cases[1].len = W * H * 2;
+    cases[0].out = cases[1].out = COACH_FMT_YUYV;
+    for (int k = 2; k < 5; k++) {
+        memcpy(cases[k].src, Y, sizeof Y);
+        cases[k].len = W * H * 3 / 2;
+        cases[k].out = COACH_FMT_NV12;
+    }
+    for (int y = 0; y < H / 2; y++)
+        for (int x = 0; x < W / 2; x++) {
+            cases[2].src[W * H + y * W + 2 * x] = Cr[y][x];      /* NV21: CrCb pairs */
+            cases[2].src[W * H + y * W + 2 * x + 1] = Cb[y][x];
+            cases[3].src[W * H + y * W / 2 + x] = Cb[y][x];      /* YU12: Cb plane, then Cr */
+            cases[3].src[W * H + W * H / 4 + y * W / 2 + x] = Cr[y][x];
+            cases[4].src[W * H + y * W / 2 + x] = Cr[y][x];      /* YV12: Cr plane, then Cb */
+            cases[4].src[W * H + W * H / 4 + y * W / 2 + x] = Cb[y][x];
+        }
+    for (int k = 0; k < 5; k++) {
+        fk_mode m[1] = {{cases[k].fourcc, W, H, {30, 0}}};
+        fk_dev d = {.modes = m, .nmodes = 1, .frame = cases[k].src, .frame_len = cases[k].len,
+                    .colorspace = V4L2_COLORSPACE_SRGB};
+        g_fk = &d;
+        char err[320];
+        cap_source_opts o = {0};
+        cap_source *s = cap_v4l2_open_io(&k_fk_io, cases[k].spec, &o, err, sizeof err);
+        if (!s)
+            fail_msg("%s: %s", cases[k].spec, err);
+        assert_int_equal(cap_v4l2_source_fourcc(s), cases[k].fourcc);
+        cap_mailbox *mb = cap_mailbox_create(s->max_bytes);
+        cap_frame f;
+        assert_int_equal(s->ops->produce(s, mb, &f), 0);
+        assert_int_equal(f.view.format, cases[k].out);
+        assert_int_equal(f.view.range, COACH_RANGE_LIMITED);
+        assert_int_equal(f.view.matrix, COACH_MATRIX_BT601);
+        if (cases[k].out == COACH_FMT_YUYV) {
+            assert_int_equal(f.view.stride, W * 2);
+            assert_memory_equal(f.view.data, yuyv, sizeof yuyv);
+        } else {
+            assert_int_equal(f.view.stride, W);
+            assert_null(f.view.data2); /* CbCr plane right after the Y rows */
+            assert_memory_equal(f.view.data, nv12, sizeof nv12);
+        }
+        cap_source_destroy(s);
+        cap_mailbox_destroy(mb);
+        assert_int_equal(d.open_fds, 0);
+        fk_release(&d);
+    }
+}
+
 int main(void)
 {
     const struct CMUnitTest tests[] = {
@@ -1170,6 +1996,18 @@ int main(void)
         cmocka_unit_test_setup_teardown(test_still_large_shrunk, tmpdir_setup, tmpdir_teardown),
         cmocka_unit_test_setup_teardown(test_still_folder_errors, tmpdir_setup, tmpdir_teardown),
         /* ---- section B ---- */
+        cmocka_unit_test(test_v4l2_enum_skips_unusable),
+        cmocka_unit_test(test_v4l2_choose_default_size),
+        cmocka_unit_test(test_v4l2_choose_cheapest_format),
+        cmocka_unit_test(test_v4l2_choose_nearest_size_and_rate),
+        cmocka_unit_test(test_v4l2_choose_slow_and_stepwise),
+        cmocka_unit_test(test_v4l2_errno_messages),
+        cmocka_unit_test(test_v4l2_open_bad_devices),
+        cmocka_unit_test(test_v4l2_stream_passthrough),
+        cmocka_unit_test(test_v4l2_colour_defaults),
+        cmocka_unit_test(test_replug_matcher),
+        cmocka_unit_test(test_v4l2_mjpeg_conversion),
+        cmocka_unit_test(test_v4l2_repack_layouts),
     };
     return cmocka_run_group_tests(tests, NULL, NULL);
 }
