@@ -259,6 +259,29 @@ static void test_exposure_whole_stops(void **state)
     }
 }
 
+/* Exposure is summed over a quarter of the pixels (see coach/tone.c); one-
+ * pixel stripes in either direction and a checkerboard must still read the
+ * mean of the two linear values (IEC 61966-2-1 decoding of codes 30, 220). */
+static void a_stripes(int x, int y, void *ctx, uint8_t c[3])
+{
+    int kind = *(int *)ctx;
+    int on = kind == 0 ? x & 1 : kind == 1 ? y & 1 : (x + y) & 1;
+    c[0] = c[1] = c[2] = (uint8_t)(on ? 220 : 30);
+}
+
+static void test_exposure_stripes_no_alias(void **state)
+{
+    (void)state;
+    double want = 0.5 * (coach_srgb_decode(30 / 255.0) + coach_srgb_decode(220 / 255.0));
+    for (int kind = 0; kind < 3; kind++) {
+        coach_frame f = a_xrgb(64, 48, a_stripes, &kind);
+        coach_result r;
+        assert_int_equal(a_analyze_once(&f, &r), 0);
+        assert_float_equal(r.mean_luma, want, 0.01 * want);
+        free((void *)f.data);
+    }
+}
+
 /* Clip fractions: luma >= 250 is a clipped highlight, <= 5 a blocked
  * shadow (thresholds of the issue, common practice for 8-bit video).
  * A frame with known shares of pixels at and around the thresholds. */
@@ -1268,6 +1291,7 @@ int main(void)
         cmocka_unit_test(test_luma_bt709_weights),
         cmocka_unit_test(test_luma_yuv_matches_rgb),
         cmocka_unit_test(test_exposure_whole_stops),
+        cmocka_unit_test(test_exposure_stripes_no_alias),
         cmocka_unit_test(test_clip_fractions_known),
         cmocka_unit_test(test_colourfulness_hasler_formula),
         cmocka_unit_test(test_colourfulness_word_categories),
