@@ -100,19 +100,25 @@ typedef struct app_shots {
     app_hook *hook;          /* --on-ready, or NULL                            */
     const char *source;      /* source name for the sidecar (borrowed)         */
     char msg[1024];          /* the last line for the user                     */
+    struct app_saver *saver; /* the thread writing snapshots (app_snap.c)      */
 } app_shots;
 
 /* 0, or -EINVAL with a line in err (an --on-ready command that cannot be
  * split).  source is borrowed for the life of s. */
 int app_shots_init(app_shots *s, const app_opts *o, const char *source, char *err, size_t errlen);
 void app_shots_fini(app_shots *s);
-/* Call after each analysed frame while the frame is still held: saves when
- * a snapshot was asked for, or when the ready state is entered with --auto;
+/* Call after each analysed frame while the frame is still held: queues a
+ * snapshot (written by a saver thread; its line comes from app_shots_poll)
+ * when one was asked for, or when the ready state is entered with --auto;
  * starts --on-ready on entering ready.  Returns how many lines for the
- * user it produced (the last one in s->msg; earlier ones went to stderr). */
+ * user it produced now (the last one in s->msg; earlier ones went to
+ * stderr). */
 int app_shots_frame(app_shots *s, const coach_frame *f, const coach_result *r, coach_profile p);
-/* Call every loop turn: reaps the on-ready command without blocking.
- * 1 when s->msg has a new line (its exit status). */
+/* Call every loop turn: collects a finished snapshot ("Saved ...") or the
+ * on-ready command's exit status without blocking.  1 when s->msg has a
+ * new line (call again: there may be another). */
 int app_shots_poll(app_shots *s);
+/* Is a snapshot or the on-ready command still on its way? */
+int app_shots_busy(const app_shots *s);
 
 #endif

@@ -2,10 +2,15 @@
  * into place) and the on-ready command (posix_spawnp, reaped with
  * waitpid WNOHANG so the UI never waits for it).
  *
- * Threads: none of its own; everything runs on the main thread.  The child
- * process runs on its own; the main loop polls for its end. */
+ * Threads: the main thread, and one saver thread started with the first
+ * live snapshot.  Queue: a single job slot (an RGB copy of the frame made
+ * on the main thread, plus the result); a snapshot asked for while the slot
+ * is full is dropped and reported.  The saver leaves one line for the main
+ * thread's poll; app_shots_fini() lets a job in progress finish and joins.
+ * The on-ready child process runs on its own; the main loop polls for it. */
 #include <errno.h>
 #include <fcntl.h>
+#include <pthread.h>
 #include <signal.h>
 #include <spawn.h>
 #include <stdio.h>
@@ -351,29 +356,19 @@ static int place(const char *tmp, const char *final)
     return rename(tmp, final) ? -errno : 0;
 }
 
-int app_snap_save(const char *dir, const coach_frame *f, const coach_result *r, coach_profile profile,
-                  const char *source, int jpeg, char *path, size_t pathlen, char *err, size_t errlen)
+/* Writes an already converted image s (and the sidecar for frame f, whose
+ * pixels are not read) taken at tv.  Any thread. */
+static int snap_write(const char *dir, SDL_Surface *s, const coach_frame *f, const struct timeval *tv,
+                      const coach_result *r, coach_profile profile, const char *source, int jpeg, char *path,
+                      size_t pathlen, char *err, size_t errlen)
 {
-    char dummy[8];
-    if (!err) {
-        err = dummy;
-        errlen = sizeof dummy;
-    }
-    if (path && pathlen)
-        path[0] = 0;
-    if (!dir || !f || !f->data || f->w <= 0 || f->h <= 0 || !r) {
-        snprintf(err, errlen, "snapshot: no frame to save");
-        return -EINVAL;
-    }
     int rc = make_dirs(dir);
     if (rc) {
         snprintf(err, errlen, "snapshot folder '%s': %s", dir, strerror(-rc));
         return rc;
     }
-    struct timeval tv;
-    gettimeofday(&tv, NULL);
     char when[48], stamp[40];
-    iso_time(&tv, when, sizeof when, stamp, sizeof stamp);
+    iso_time(tv, when, sizeof when, stamp, sizeof stamp);
 
     char timg[4200], tjson[4200], fimg[4200], fjson[4200];
     snprintf(timg, sizeof timg, "%s/.vfcoach-snap-XXXXXX", dir);
@@ -393,17 +388,7 @@ int app_snap_save(const char *dir, const coach_frame *f, const coach_result *r, 
         return rc;
     }
 
-    SDL_Surface *s = frame_surface(f);
-    if (!s) {
-        snprintf(err, errlen, "snapshot: cannot convert the %dx%d %s frame: %s", f->w, f->h,
-                 coach_format_name(f->format), SDL_GetError());
-        close(fi);
-        close(fj);
-        rc = -EINVAL;
-        goto fail;
-    }
     rc = save_image(s, fi, jpeg);
-    SDL_FreeSurface(s);
     if (close(fi) && !rc)
         rc = -errno;
     if (rc) {
@@ -466,6 +451,33 @@ int app_snap_save(const char *dir, const coach_frame *f, const coach_result *r, 
 fail:
     unlink(timg);
     unlink(tjson);
+    return rc;
+}
+
+int app_snap_save(const char *dir, const coach_frame *f, const coach_result *r, coach_profile profile,
+                  const char *source, int jpeg, char *path, size_t pathlen, char *err, size_t errlen)
+{
+    char dummy[8];
+    if (!err) {
+        err = dummy;
+        errlen = sizeof dummy;
+    }
+    if (path && pathlen)
+        path[0] = 0;
+    if (!dir || !f || !f->data || f->w <= 0 || f->h <= 0 || !r) {
+        snprintf(err, errlen, "snapshot: no frame to save");
+        return -EINVAL;
+    }
+    struct timeval tv;
+    gettimeofday(&tv, NULL);
+    SDL_Surface *s = frame_surface(f);
+    if (!s) {
+        snprintf(err, errlen, "snapshot: cannot convert the %dx%d %s frame: %s", f->w, f->h,
+                 coach_format_name(f->format), SDL_GetError());
+        return -EINVAL;
+    }
+    int rc = snap_write(dir, s, f, &tv, r, profile, source, jpeg, path, pathlen, err, errlen);
+    SDL_FreeSurface(s);
     return rc;
 }
 
@@ -666,6 +678,59 @@ int app_hook_poll(app_hook *h, int *status, char *msg, size_t n)
 
 /* ---- the live loop's duties ------------------------------------------------------------ */
 
+/* Encoding a 1080p PNG takes about a second, so the live loop hands each
+ * snapshot to one saver thread: the main thread converts the frame into a
+ * new RGB surface (the copy that outlives the mailbox buffer) and queues
+ * it; the saver writes it and leaves a line for app_shots_poll().  One job
+ * at a time: a snapshot asked for while one is being written is skipped,
+ * and said so. */
+struct app_saver {
+    pthread_t th;
+    int started;
+    pthread_mutex_t mu;
+    pthread_cond_t cv;
+    int quit;            /* guarded by mu: finish the queued job, then end */
+    SDL_Surface *job;    /* guarded by mu: queued or being written, NULL idle */
+    int done;            /* guarded by mu: a finished job's line is in msg */
+    /* job parameters: written by the main thread only while job == NULL */
+    coach_frame meta;
+    coach_result res;
+    coach_profile profile;
+    int jpeg;
+    struct timeval tv;
+    char dir[4096];
+    char source[256];
+    char msg[1024];      /* guarded by mu */
+};
+
+static void *saver_main(void *arg)
+{
+    struct app_saver *sv = arg;
+    pthread_mutex_lock(&sv->mu);
+    for (;;) {
+        while (!sv->job && !sv->quit)
+            pthread_cond_wait(&sv->cv, &sv->mu);
+        if (!sv->job)
+            break;
+        SDL_Surface *s = sv->job;
+        pthread_mutex_unlock(&sv->mu);
+        char path[4200], err[1024], line[1024];
+        int rc = snap_write(sv->dir, s, &sv->meta, &sv->tv, &sv->res, sv->profile, sv->source, sv->jpeg, path,
+                            sizeof path, err, sizeof err);
+        if (rc)
+            snprintf(line, sizeof line, "%s", err);
+        else
+            snprintf(line, sizeof line, "Saved %.1000s", path);
+        SDL_FreeSurface(s);
+        pthread_mutex_lock(&sv->mu);
+        memcpy(sv->msg, line, sizeof line);
+        sv->done = 1;
+        sv->job = NULL;
+    }
+    pthread_mutex_unlock(&sv->mu);
+    return NULL;
+}
+
 int app_shots_init(app_shots *s, const app_opts *o, const char *source, char *err, size_t errlen)
 {
     memset(s, 0, sizeof *s);
@@ -688,15 +753,90 @@ void app_shots_fini(app_shots *s)
 {
     if (!s)
         return;
+    struct app_saver *sv = s->saver;
+    if (sv) {
+        if (sv->started) {
+            /* a snapshot being written is finished, never cut short */
+            pthread_mutex_lock(&sv->mu);
+            sv->quit = 1;
+            pthread_cond_signal(&sv->cv);
+            pthread_mutex_unlock(&sv->mu);
+            pthread_join(sv->th, NULL);
+            if (sv->done)
+                fprintf(stderr, "vfcoach: %s\n", sv->msg);
+        }
+        pthread_mutex_destroy(&sv->mu);
+        pthread_cond_destroy(&sv->cv);
+        free(sv);
+        s->saver = NULL;
+    }
     app_hook_destroy(s->hook);
     s->hook = NULL;
 }
 
-static void say(app_shots *s, int *lines)
+static int saver_start(app_shots *s)
 {
-    if (*lines > 0)
-        fprintf(stderr, "vfcoach: %s\n", s->msg); /* the earlier line of this frame */
-    (*lines)++;
+    if (s->saver)
+        return 0;
+    struct app_saver *sv = calloc(1, sizeof *sv);
+    if (!sv)
+        return -ENOMEM;
+    pthread_mutex_init(&sv->mu, NULL);
+    pthread_cond_init(&sv->cv, NULL);
+    int e = pthread_create(&sv->th, NULL, saver_main, sv);
+    if (e) {
+        pthread_mutex_destroy(&sv->mu);
+        pthread_cond_destroy(&sv->cv);
+        free(sv);
+        return -e;
+    }
+    sv->started = 1;
+    s->saver = sv;
+    return 0;
+}
+
+/* Queues f for saving; 0 queued (the line comes later), 1 a line now. */
+static int queue_snapshot(app_shots *s, const coach_frame *f, const coach_result *r, coach_profile p)
+{
+    if (!s->dir[0]) {
+        snprintf(s->msg, sizeof s->msg, "snapshot: no folder (no HOME): give one with --out DIR");
+        return 1;
+    }
+    int e = saver_start(s);
+    if (e) {
+        snprintf(s->msg, sizeof s->msg, "snapshot: cannot start the saver: %s", strerror(-e));
+        return 1;
+    }
+    struct app_saver *sv = s->saver;
+    pthread_mutex_lock(&sv->mu);
+    int busy = sv->job != NULL;
+    pthread_mutex_unlock(&sv->mu);
+    if (busy) {
+        snprintf(s->msg, sizeof s->msg, "snapshot skipped: the previous one is still being written");
+        return 1;
+    }
+    struct timeval tv;
+    gettimeofday(&tv, NULL);
+    SDL_Surface *surf = frame_surface(f);
+    if (!surf) {
+        snprintf(s->msg, sizeof s->msg, "snapshot: cannot convert the %dx%d %s frame: %s", f->w, f->h,
+                 coach_format_name(f->format), SDL_GetError());
+        return 1;
+    }
+    /* the saver is idle: its parameters are ours to fill until job is set */
+    sv->meta = *f;
+    sv->meta.data = sv->meta.data2 = NULL;
+    sv->res = *r;
+    sv->profile = p;
+    sv->jpeg = s->jpeg;
+    sv->tv = tv;
+    snprintf(sv->dir, sizeof sv->dir, "%s", s->dir);
+    snprintf(sv->source, sizeof sv->source, "%s", s->source ? s->source : "");
+    pthread_mutex_lock(&sv->mu);
+    sv->job = surf;
+    pthread_cond_signal(&sv->cv);
+    pthread_mutex_unlock(&sv->mu);
+    return 0;
 }
 
 int app_shots_frame(app_shots *s, const coach_frame *f, const coach_result *r, coach_profile p)
@@ -706,26 +846,42 @@ int app_shots_frame(app_shots *s, const coach_frame *f, const coach_result *r, c
     s->prev_ready = r->ready;
     if (s->pending || (rising && s->auto_snap)) {
         s->pending = 0;
-        char path[4200], err[512];
-        if (!s->dir[0]) {
-            say(s, &lines);
-            snprintf(s->msg, sizeof s->msg, "snapshot: no folder (no HOME): give one with --out DIR");
-        } else if (app_snap_save(s->dir, f, r, p, s->source, s->jpeg, path, sizeof path, err, sizeof err)) {
-            say(s, &lines);
-            snprintf(s->msg, sizeof s->msg, "%s", err);
-        } else {
-            say(s, &lines);
-            snprintf(s->msg, sizeof s->msg, "Saved %.1000s", path);
-        }
+        lines += queue_snapshot(s, f, r, p);
     }
     if (rising && s->hook) {
-        say(s, &lines);
+        if (lines)
+            fprintf(stderr, "vfcoach: %s\n", s->msg); /* the earlier line of this frame */
         app_hook_start(s->hook, s->msg, sizeof s->msg);
+        lines++;
     }
     return lines;
 }
 
 int app_shots_poll(app_shots *s)
 {
+    struct app_saver *sv = s->saver;
+    if (sv) {
+        pthread_mutex_lock(&sv->mu);
+        int done = sv->done;
+        if (done) {
+            memcpy(s->msg, sv->msg, sizeof s->msg);
+            sv->done = 0;
+        }
+        pthread_mutex_unlock(&sv->mu);
+        if (done)
+            return 1;
+    }
     return s->hook ? app_hook_poll(s->hook, NULL, s->msg, sizeof s->msg) : 0;
+}
+
+int app_shots_busy(const app_shots *s)
+{
+    int b = 0;
+    struct app_saver *sv = s->saver;
+    if (sv) {
+        pthread_mutex_lock(&sv->mu);
+        b = sv->job != NULL || sv->done;
+        pthread_mutex_unlock(&sv->mu);
+    }
+    return b || app_hook_running(s->hook);
 }

@@ -748,6 +748,82 @@ static void test_hook_runs_and_reports(void **state)
     free(dir);
 }
 
+/* The live loop's duties: --auto saves once each time the ready state is
+ * entered (not on every ready frame), --on-ready runs on each entry, the
+ * snapshot key saves regardless; saving happens off the main thread and
+ * its outcome comes back through the poll.  (Our own rules, issue 5.) */
+static int shots_settle(app_shots *s, int *saved, int *exits)
+{
+    for (int k = 0; k < 2000; k++) {
+        while (app_shots_poll(s)) {
+            if (!strncmp(s->msg, "Saved ", 6))
+                (*saved)++;
+            else if (strstr(s->msg, "exited with status 0"))
+                (*exits)++;
+            else if (!strstr(s->msg, "started"))
+                fprintf(stderr, "shots: %s\n", s->msg);
+        }
+        if (!app_shots_busy(s))
+            return 1;
+        struct timespec ts = {0, 5 * 1000 * 1000};
+        nanosleep(&ts, NULL);
+    }
+    return 0;
+}
+
+static void test_shots_auto_once_per_ready(void **state)
+{
+    (void)state;
+    char *dir = tmpdir_make(), *side = tmpdir_make();
+    char line[700], fired[600];
+    snprintf(fired, sizeof fired, "%s/fired", side);
+    snprintf(line, sizeof line, "sh -c 'echo r >> \"$1\"' hook %s", fired);
+    app_opts o;
+    memset(&o, 0, sizeof o);
+    o.out_dir = dir;
+    o.auto_snap = 1;
+    o.on_ready = line;
+    app_shots s;
+    char err[256];
+    assert_int_equal(app_shots_init(&s, &o, "test", err, sizeof err), 0);
+    tframe t;
+    pattern_frame(&t, 160, 100);
+    coach_result r;
+    memset(&r, 0, sizeof r);
+    static const int seq[] = {0, 1, 1, 1, 0, 0, 1, 1, 0};
+    int saved = 0, exits = 0;
+    for (size_t i = 0; i < sizeof seq / sizeof seq[0]; i++) {
+        r.ready = seq[i];
+        app_shots_frame(&s, &t.f.view, &r, COACH_PROFILE_PRODUCT);
+        assert_true(shots_settle(&s, &saved, &exits));
+    }
+    assert_int_equal(saved, 2);
+    assert_int_equal(exits, 2);
+    assert_int_equal(dir_count(dir), 4);
+    char *c = slurp(fired);
+    assert_non_null(c);
+    assert_string_equal(c, "r\nr\n");
+    /* the key: saved although not ready, no command run */
+    s.pending = 1;
+    r.ready = 0;
+    app_shots_frame(&s, &t.f.view, &r, COACH_PROFILE_PRODUCT);
+    assert_true(shots_settle(&s, &saved, &exits));
+    assert_int_equal(saved, 3);
+    assert_int_equal(exits, 2);
+    assert_int_equal(dir_count(dir), 6);
+    app_shots_fini(&s);
+    /* a command that cannot be split is refused at start */
+    o.on_ready = "echo 'half";
+    assert_int_equal(app_shots_init(&s, &o, "test", err, sizeof err), -EINVAL);
+    assert_non_null(strstr(err, "quote"));
+    app_shots_fini(&s);
+    rm_tree(dir);
+    rm_tree(side);
+    free(dir);
+    free(side);
+    free(t.px);
+}
+
 /* ==== section B ==== */
 
 static int overlay_setup(void **state)
@@ -785,6 +861,7 @@ int main(void)
         cmocka_unit_test(test_snapshot_default_dir),
         cmocka_unit_test(test_hook_split_quotes),
         cmocka_unit_test(test_hook_runs_and_reports),
+        cmocka_unit_test(test_shots_auto_once_per_ready),
         /* ---- section B ---- */
     };
     return cmocka_run_group_tests(tests, overlay_setup, overlay_teardown);
