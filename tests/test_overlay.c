@@ -396,6 +396,132 @@ static void test_guides_crop_ratio(void **state)
         }
 }
 
+static char *tmpdir_make(void);
+
+/* Camera layouts: YUYV and NV12 frames show with BT.601 narrow-range
+ * decoding (ITU-R BT.601-7: Y' 16..235, so Y' = 126 is code 128 in RGB
+ * within rounding) and zebras mark Y' = 235, which is white (luma 255). */
+static void test_readouts_yuv_frames(void **state)
+{
+    (void)state;
+    int fw = 320, fh = 180;
+    uint8_t *yuyv = malloc((size_t)fw * fh * 2), *nv12 = malloc((size_t)fw * fh * 3 / 2);
+    assert_non_null(yuyv);
+    assert_non_null(nv12);
+    for (int y = 0; y < fh; y++)
+        for (int x = 0; x < fw; x++) {
+            uint8_t Y = (x >= 100 && x < 200 && y >= 60 && y < 120) ? 235 : 126;
+            yuyv[(size_t)y * fw * 2 + 2 * x] = Y;
+            yuyv[(size_t)y * fw * 2 + 2 * x + 1] = 128;
+            nv12[(size_t)y * fw + x] = Y;
+        }
+    memset(nv12 + (size_t)fw * fh, 128, (size_t)fw * fh / 2);
+    for (int k = 0; k < 2; k++) {
+        cap_frame f;
+        memset(&f, 0, sizeof f);
+        f.view.data = k ? nv12 : yuyv;
+        f.view.w = fw;
+        f.view.h = fh;
+        f.view.stride = k ? fw : fw * 2;
+        f.view.format = k ? COACH_FMT_NV12 : COACH_FMT_YUYV;
+        f.view.matrix = COACH_MATRIX_BT601;
+        f.view.range = COACH_RANGE_LIMITED;
+        /* shown at twice the size: the marks still cover source pixels */
+        ovl_window *off = twin(2 * fw, 2 * fh, "none"), *on = twin(2 * fw, 2 * fh, "zebras");
+        assert_int_equal(ovl_draw(off, &f, NULL, NULL), 0);
+        assert_int_equal(ovl_draw(on, &f, NULL, NULL), 0);
+        SDL_Surface *a = ovl_readback(off), *b = ovl_readback(on);
+        assert_non_null(a);
+        assert_non_null(b);
+        assert_true(is_grey(pix(a, 40, 40), 128, 3));
+        assert_true(is_grey(pix(a, 300, 180), 255, 3));
+        long inside = 0, outside = 0;
+        for (int y = 0; y < 2 * fh; y++)
+            for (int x = 0; x < 2 * fw; x++)
+                if (pix(a, x, y) != pix(b, x, y)) {
+                    if (x >= 198 && x < 402 && y >= 118 && y < 242)
+                        inside++;
+                    else
+                        outside++;
+                }
+        assert_int_equal(outside, 0);
+        assert_true(inside > 200 * 120 / 4);
+        SDL_FreeSurface(a);
+        SDL_FreeSurface(b);
+        ovl_destroy(off);
+        ovl_destroy(on);
+    }
+    free(yuyv);
+    free(nv12);
+}
+
+/* Mirrored, the level line leans the other way (the picture is flipped
+ * left-right), and a lost source dims the last frame. */
+static void test_guides_mirror_and_lost(void **state)
+{
+    (void)state;
+    tframe t;
+    tframe_init(&t, 1280, 720, 128);
+    char err[256];
+    ovl_opts o = {.width = 800, .height = 450, .hidden = 1, .show = "horizon", .mirror = 1};
+    ovl_window *w = ovl_create(&o, err, sizeof err);
+    assert_non_null(w);
+    assert_true(ovl_mirrored(w));
+    coach_result r;
+    memset(&r, 0, sizeof r);
+    r.has_tilt = 1;
+    r.tilt_deg = 6.0;
+    SDL_Surface *s = tdraw(w, &t, &r);
+    int n;
+    double a = fit_angle(s, 200, 600, 0, &n);
+    assert_true(n > 100);
+    assert_true(fabs(a + 6.0) <= 0.25);
+    SDL_FreeSurface(s);
+    ovl_status st;
+    memset(&st, 0, sizeof st);
+    st.source_lost = 1;
+    st.message = "Camera unplugged";
+    assert_int_equal(ovl_draw(w, NULL, &r, &st), 0);
+    s = ovl_readback(w);
+    assert_non_null(s);
+    /* a corner of the frame, away from the message: dimmed */
+    assert_true(chan(pix(s, 10, 440), 0) < 90);
+    SDL_FreeSurface(s);
+    ovl_destroy(w);
+    free(t.px);
+}
+
+/* With no font at all, the window says so (fontconfig reads the
+ * configuration named by FONTCONFIG_FILE; an empty one lists no fonts). */
+static void test_text_no_font_error(void **state)
+{
+    (void)state;
+    char *dir = tmpdir_make();
+    char conf[600];
+    snprintf(conf, sizeof conf, "%s/fonts.conf", dir);
+    FILE *fp = fopen(conf, "w");
+    assert_non_null(fp);
+    fputs("<?xml version=\"1.0\"?>\n<fontconfig></fontconfig>\n", fp);
+    fclose(fp);
+    char *old = getenv("FONTCONFIG_FILE") ? strdup(getenv("FONTCONFIG_FILE")) : NULL;
+    setenv("FONTCONFIG_FILE", conf, 1);
+    char buf[512], err[256] = "";
+    int rc = ovl_font_find(buf, sizeof buf, err, sizeof err);
+    if (old)
+        setenv("FONTCONFIG_FILE", old, 1);
+    else
+        unsetenv("FONTCONFIG_FILE");
+    free(old);
+    assert_int_equal(rc, -ENOENT);
+    assert_non_null(strstr(err, "font"));
+    /* and with the system configuration one is found */
+    assert_int_equal(ovl_font_find(buf, sizeof buf, err, sizeof err), 0);
+    assert_int_equal(access(buf, R_OK), 0);
+    unlink(conf);
+    rmdir(dir);
+    free(dir);
+}
+
 /* ---- snapshots ---------------------------------------------------------- */
 
 static char *tmpdir_make(void)
@@ -856,6 +982,9 @@ int main(void)
         cmocka_unit_test(test_guides_crop_ratio),
         cmocka_unit_test(test_readouts_zebras_only_clipped),
         cmocka_unit_test(test_readouts_peaking_only_edges),
+        cmocka_unit_test(test_readouts_yuv_frames),
+        cmocka_unit_test(test_guides_mirror_and_lost),
+        cmocka_unit_test(test_text_no_font_error),
         cmocka_unit_test(test_snapshot_roundtrip),
         cmocka_unit_test(test_snapshot_failed_write_leaves_nothing),
         cmocka_unit_test(test_snapshot_default_dir),
