@@ -116,14 +116,21 @@ static void subject_focus(const coach_aimg *img, const coach_box *b, coach_resul
     double s1 = 0, s2 = 0, b1 = 0, b2 = 0;
     for (int y = 0; y < h; y++) {
         const float *l1 = img->lap + (size_t)y * w, *l2 = img->lap_sq + (size_t)y * w;
-        int in_y = y >= y0 && y <= y1;
+        float r1 = 0, r2 = 0;
         for (int x = 0; x < w; x++) {
-            s1 += l1[x];
-            s2 += l2[x];
-            if (in_y && x >= x0 && x <= x1) {
-                b1 += l1[x];
-                b2 += l2[x];
+            r1 += l1[x];
+            r2 += l2[x];
+        }
+        s1 += r1;
+        s2 += r2;
+        if (y >= y0 && y <= y1) {
+            float q1 = 0, q2 = 0;
+            for (int x = x0; x <= x1; x++) {
+                q1 += l1[x];
+                q2 += l2[x];
             }
+            b1 += q1;
+            b2 += q2;
         }
     }
     const double n = (double)w * h, nb = (double)(x1 - x0 + 1) * (y1 - y0 + 1);

@@ -75,26 +75,71 @@ void coach_saliency_destroy(coach_saliency *s)
     free(s);
 }
 
-/* Area-weighted resampling of n source samples (stride st) to N. */
-static void resample_line(const float *src, int n, int st, float *dst, int dst_st)
+/* Area-weighted resampling: output sample j covers source samples
+ * [j n/N, (j+1) n/N); the samples it partly covers count by the overlap. */
+typedef struct span { int i0, i1; float w0, w1; } span; /* first/last sample and their weights */
+
+static void make_spans(int n, span *sp)
 {
-    const float f = (float)n / N, inv = (float)N / (float)n;
+    const double f = (double)n / N;
     for (int j = 0; j < N; j++) {
-        float x0 = j * f, x1 = x0 + f, acc = 0;
-        int i0 = (int)x0, i1 = (int)ceilf(x1);
-        if (i1 > n)
-            i1 = n;
-        if (i1 - i0 > 2) { /* whole samples in the middle, partial at the ends */
-            acc = (i0 + 1 - x0) * src[(size_t)i0 * st] + (x1 - (i1 - 1)) * src[(size_t)(i1 - 1) * st];
-            for (int i = i0 + 1; i < i1 - 1; i++)
-                acc += src[(size_t)i * st];
+        double x0 = j * f, x1 = x0 + f;
+        int i0 = (int)x0, i1 = (int)ceil(x1) - 1;
+        if (i1 > n - 1)
+            i1 = n - 1;
+        if (i1 < i0)
+            i1 = i0;
+        sp[j].i0 = i0;
+        sp[j].i1 = i1;
+        if (i0 == i1) {
+            sp[j].w0 = (float)(x1 - x0);
+            sp[j].w1 = 0;
         } else {
-            for (int i = i0; i < i1; i++) {
-                float a = i > x0 ? (float)i : x0, b = i + 1 < x1 ? (float)(i + 1) : x1;
-                acc += (b - a) * src[(size_t)i * st];
-            }
+            sp[j].w0 = (float)(i0 + 1 - x0);
+            sp[j].w1 = (float)(x1 - i1);
         }
-        dst[(size_t)j * dst_st] = acc * inv;
+    }
+}
+
+/* Resamples a w x h plane to N x N through s->rows (h x N). */
+static void resample_plane(coach_saliency *s, const float *src, int w, int h, float *dst)
+{
+    span sx[N], sy[N];
+    make_spans(w, sx);
+    make_spans(h, sy);
+    const float ax = (float)N / w, ay = (float)N / h;
+    for (int y = 0; y < h; y++) {
+        const float *r = src + (size_t)y * w;
+        float *o = s->rows + (size_t)y * N;
+        for (int j = 0; j < N; j++) {
+            const span *p = &sx[j];
+            float acc = p->w0 * r[p->i0];
+            if (p->i1 > p->i0) {
+                for (int i = p->i0 + 1; i < p->i1; i++)
+                    acc += r[i];
+                acc += p->w1 * r[p->i1];
+            }
+            o[j] = acc * ax;
+        }
+    }
+    for (int j = 0; j < N; j++) {
+        const span *p = &sy[j];
+        float *o = dst + (size_t)j * N;
+        const float *r0 = s->rows + (size_t)p->i0 * N;
+        for (int x = 0; x < N; x++)
+            o[x] = p->w0 * r0[x];
+        if (p->i1 > p->i0) {
+            for (int i = p->i0 + 1; i < p->i1; i++) {
+                const float *r = s->rows + (size_t)i * N;
+                for (int x = 0; x < N; x++)
+                    o[x] += r[x];
+            }
+            const float *r1 = s->rows + (size_t)p->i1 * N;
+            for (int x = 0; x < N; x++)
+                o[x] += p->w1 * r1[x];
+        }
+        for (int x = 0; x < N; x++)
+            o[x] *= ay;
     }
 }
 
@@ -145,10 +190,7 @@ static void blur5(float *m, float *pad)
 
 static int spectral_residual(coach_saliency *s, const float *luma, int w, int h)
 {
-    for (int y = 0; y < h; y++)
-        resample_line(luma + (size_t)y * w, w, 1, s->rows + (size_t)y * N, 1);
-    for (int x = 0; x < N; x++)
-        resample_line(s->rows + x, h, N, s->small + x, N);
+    resample_plane(s, luma, w, h, s->small);
     double mean = 0, var = 0;
     for (int i = 0; i < NN; i++)
         mean += s->small[i];
@@ -219,12 +261,8 @@ static float boundary_contrast(coach_saliency *s, const float *r, const float *g
 {
     const float *src[3] = {r, g, b};
     float *dst[3] = {s->cr, s->cg, s->cb};
-    for (int c = 0; c < 3; c++) {
-        for (int y = 0; y < h; y++)
-            resample_line(src[c] + (size_t)y * w, w, 1, s->rows + (size_t)y * N, 1);
-        for (int x = 0; x < N; x++)
-            resample_line(s->rows + x, h, N, dst[c] + x, N);
-    }
+    for (int c = 0; c < 3; c++)
+        resample_plane(s, src[c], w, h, dst[c]);
     float proto[4 * SEGS][3];
     const int L = N / SEGS;
     for (int side = 0; side < 4; side++)
