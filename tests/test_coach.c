@@ -433,6 +433,40 @@ static void test_sharpness_laplacian_reflect101(void **state)
     free((void *)f.data);
 }
 
+/* The hand-vectorised XRGB kernel and the portable loop are the same
+ * integer arithmetic: identical histogram, statistics and analysis image
+ * (the portable path is what machines without AVX2 run). */
+static void test_tone_simd_matches_portable(void **state)
+{
+    (void)state;
+    uint32_t seed = 4242;
+    const int w = 1203, h = 77; /* a width with tails after 16-pixel steps */
+    coach_frame f = a_xrgb(w, h, a_random, &seed);
+    coach_tone *t1 = coach_tone_create(w, h), *t2 = coach_tone_create(w, h);
+    assert_non_null(t1);
+    assert_non_null(t2);
+    coach_tone_set_simd(t1, 1);
+    coach_tone_set_simd(t2, 0);
+    static coach_result r1, r2;
+    coach_aimg i1, i2;
+    assert_int_equal(coach_tone_run(t1, &f, &r1, &i1), 0);
+    assert_int_equal(coach_tone_run(t2, &f, &r2, &i2), 0);
+    assert_memory_equal(r1.hist, r2.hist, sizeof(r1.hist));
+    assert_true(r1.exposure_ev == r2.exposure_ev);
+    assert_true(r1.colourfulness == r2.colourfulness);
+    assert_true(r1.sharpness == r2.sharpness);
+    size_t n = (size_t)i1.w * i1.h * sizeof(float);
+    assert_memory_equal(i1.luma, i2.luma, n);
+    assert_memory_equal(i1.r, i2.r, n);
+    assert_memory_equal(i1.g, i2.g, n);
+    assert_memory_equal(i1.b, i2.b, n);
+    assert_memory_equal(i1.lap, i2.lap, n);
+    assert_memory_equal(i1.lap_sq, i2.lap_sq, n);
+    coach_tone_destroy(t1);
+    coach_tone_destroy(t2);
+    free((void *)f.data);
+}
+
 /* ---- score ---- */
 
 /* A first-order low-pass of time constant tau answers a unit step with
@@ -1247,6 +1281,47 @@ static void test_subject_focus_sharp_or_soft(void **state)
     coach_destroy(a);
 }
 
+/* ---- robustness ---- */
+
+/* Every frame shape the analyzer accepts, from the smallest to strip-like
+ * and portrait ones, gives composition fields within their documented
+ * ranges (coach.h) over a few frames, and never reads out of bounds (the
+ * asan build runs this too). */
+static void test_compose_odd_sizes(void **state)
+{
+    (void)state;
+    static const int sizes[][2] = {{8, 8}, {16, 9}, {33, 700}, {700, 33}, {639, 479},
+                                   {480, 640}, {1279, 721}, {2000, 40}};
+    static coach_result r;
+    for (size_t i = 0; i < sizeof sizes / sizeof sizes[0]; i++) {
+        coach_frame f = b_frame(sizes[i][0], sizes[i][1]);
+        coach_analyzer *a = b_analyzer(COACH_GRID_PHI);
+        for (int k = 0; k < 3; k++) {
+            b_horizon(&f, 4.0 - 3 * k, 0.45, 6.0);
+            assert_int_equal(coach_analyze(a, &f, k / 30.0, &r), 0);
+            if (r.has_horizon)
+                assert_true(r.horizon_y >= 0 && r.horizon_y <= 1);
+            if (r.has_tilt)
+                assert_true(fabs(r.tilt_deg) <= 45 && r.tilt_confidence >= 0 && r.tilt_confidence <= 1);
+            if (r.has_subject) {
+                assert_true(r.subject.x >= 0 && r.subject.x <= 1 && r.subject.y >= 0 && r.subject.y <= 1);
+                assert_true(r.subject.w > 0 && r.subject.w <= 1 && r.subject.h > 0 && r.subject.h <= 1);
+                assert_true(r.placement >= 0 && r.placement <= 1);
+                assert_true(r.placement_point >= 0 && r.placement_point <= 3);
+            }
+            if (r.has_lead_room)
+                assert_true(r.lead_room >= 0 && r.lead_room <= 1);
+            if (r.has_subject_focus)
+                assert_true(r.subject_focus >= 0 && isfinite(r.subject_focus));
+            assert_true(fabs(r.balance_lr) <= 1 && fabs(r.balance_tb) <= 1);
+            assert_true(r.motion_px_s >= 0 && isfinite(r.motion_px_s));
+            assert_true(r.edge_intrusions <= 15);
+        }
+        coach_destroy(a);
+        free((void *)f.data);
+    }
+}
+
 /* ---- internals ---- */
 
 /* The FFT against the DFT's definition, X[k] = sum x[n] exp(-2 pi i k n / N),
@@ -1296,6 +1371,7 @@ int main(void)
         cmocka_unit_test(test_colourfulness_hasler_formula),
         cmocka_unit_test(test_colourfulness_word_categories),
         cmocka_unit_test(test_sharpness_laplacian_reflect101),
+        cmocka_unit_test(test_tone_simd_matches_portable),
         cmocka_unit_test(test_score_smoothing_step_response),
         cmocka_unit_test(test_ready_hysteresis_no_flicker),
         cmocka_unit_test(test_score_hints_worst_first),
@@ -1311,6 +1387,7 @@ int main(void)
         cmocka_unit_test(test_motion_known_shift),
         cmocka_unit_test(test_lead_room_follows_motion),
         cmocka_unit_test(test_subject_focus_sharp_or_soft),
+        cmocka_unit_test(test_compose_odd_sizes),
         cmocka_unit_test(test_fft2d_matches_dft),
     };
     return cmocka_run_group_tests(tests, NULL, NULL);
