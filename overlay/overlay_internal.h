@@ -162,6 +162,8 @@ struct ovl_window {
     uint64_t frames;           /* frames shown (f != NULL)                 */
     uint64_t draws;            /* every ovl_draw                           */
     double render_ms;          /* smoothed cost of ovl_render incl. present */
+    double render_cpu_ms;      /* the same in thread CPU time              */
+    double sum_ms, sum_cpu_ms; /* totals over frames shown (summary line)  */
 };
 
 /* ---- window.c ------------------------------------------------------------- */

@@ -495,8 +495,8 @@ static float label_and_stats(ovl_window *w, const ovl_status *st)
     if (w->stats && st) {
         snprintf(l[lines++], sizeof l[0], "%.1f fps shown · %llu dropped", st->fps_shown,
                  (unsigned long long)st->dropped);
-        snprintf(l[lines++], sizeof l[0], "capture → screen %.0f ms · drawing %.1f ms (%s)", st->latency_ms,
-                 w->render_ms, w->renderer_name);
+        snprintf(l[lines++], sizeof l[0], "capture → screen %.0f ms · drawing %.1f ms, %.1f CPU (%s)",
+                 st->latency_ms, w->render_ms, w->render_cpu_ms, w->renderer_name);
     }
     if (!lines)
         return y;

@@ -5,6 +5,7 @@
 #include <stdio.h>
 #include <stdlib.h>
 #include <string.h>
+#include <time.h>
 #include <unistd.h>
 
 #include <SDL_image.h>
@@ -331,6 +332,10 @@ void ovl_destroy(ovl_window *w)
 {
     if (!w)
         return;
+    if (w->stats && w->frames > 0)
+        fprintf(stderr, "vfcoach: window: %llu frames shown, drawing %.2f ms a frame (%.2f ms CPU), %s renderer\n",
+                (unsigned long long)w->frames, w->sum_ms / (double)w->frames, w->sum_cpu_ms / (double)w->frames,
+                w->renderer_name);
     if (w->audio)
         SDL_CloseAudioDevice(w->audio);
     free(w->tone_buf);
@@ -540,6 +545,8 @@ static void screenshot(ovl_window *w)
 int ovl_render(ovl_window *w, const cap_frame *f, const coach_result *r, const ovl_status *st)
 {
     Uint64 t0 = SDL_GetPerformanceCounter();
+    struct timespec c0, c1;
+    clock_gettime(CLOCK_THREAD_CPUTIME_ID, &c0);
     int rc = ovl_draw(w, f, r, st);
     if (rc)
         return rc;
@@ -549,6 +556,14 @@ int ovl_render(ovl_window *w, const cap_frame *f, const coach_result *r, const o
     double ms = (double)(SDL_GetPerformanceCounter() - t0) * 1000.0 / (double)SDL_GetPerformanceFrequency();
     /* shown with the stats: what the window itself costs per frame */
     w->render_ms = w->render_ms > 0 ? 0.9 * w->render_ms + 0.1 * ms : ms;
+    /* the same in this thread's CPU time: tells a busy machine from a slow window */
+    clock_gettime(CLOCK_THREAD_CPUTIME_ID, &c1);
+    double cpu = (double)(c1.tv_sec - c0.tv_sec) * 1e3 + (double)(c1.tv_nsec - c0.tv_nsec) * 1e-6;
+    w->render_cpu_ms = w->render_cpu_ms > 0 ? 0.9 * w->render_cpu_ms + 0.1 * cpu : cpu;
+    if (f) {
+        w->sum_ms += ms;
+        w->sum_cpu_ms += cpu;
+    }
     return 0;
 }
 
