@@ -54,6 +54,10 @@ void coach_tone_geometry(int w, int h, int *scale, int *aw, int *ah);
  * analysis image *img.  Allocates only when the frame is larger than any
  * before; returns 0, -EINVAL or -ENOMEM. */
 int coach_tone_run(coach_tone *t, const coach_frame *f, coach_result *out, coach_aimg *img);
+/* Chooses the hand-vectorised kernels (1, the default where the CPU has
+ * them) or the portable ones (0); returns the previous choice.  For tests:
+ * both must give identical results. */
+int coach_tone_set_simd(coach_tone *t, int on);
 /* sRGB decoding (IEC 61966-2-1): encoded 0..1 -> linear 0..1. */
 double coach_srgb_decode(double v);
 
