@@ -48,6 +48,7 @@
 #define TW 1024       /* wave texture tile, texels along the horizon (2^n)   */
 #define TH 128        /* ... and across it (2^n)                              */
 #define NT 64         /* quantised texture levels in the sea tables          */
+#define QN 4096       /* steps of the texture quantiser's lookup table       */
 #define KMAX 64       /* largest Gaussian radius (sigma up to ~21 px)        */
 #define SIGMA_MAX 20.0
 
@@ -70,7 +71,9 @@ typedef struct demo_source {
     /* harbour */
     float *tex;             /* TW x TH wave tile, -1..1 */
     float *texb, *tmp;      /* blurred tile, scratch (max(TW*TH, mask area)) */
-    uint8_t *texq;          /* blurred tile quantised to 0..NT-1 */
+    uint16_t *texk;         /* blurred tile in quantiser steps 0..QN-1 */
+    double tex_lo;          /* deepest trough of the tile (the peak is +1) */
+    uint8_t quant[QN];      /* texture value -1..1 -> level 0..NT-1 */
     uint32_t *sky, *sea, *band;
     int nrows;              /* rows of the sky and sea tables */
     int band_cap;           /* rows the band table can hold */
@@ -357,57 +360,111 @@ static harbour_state harbour_at(const demo_source *d, double t)
 
 /* Wave texture: crest-shaped ridges along the horizon from a sum of
  * sinusoids with whole cycles per tile, so the tile wraps seamlessly. */
-static void harbour_texture(demo_source *d)
+static void add_wave(float *field, float *row_s, float *col_s, int kx, int ky, double amp, double p)
 {
-    enum { NC = 36 };
+    for (int x = 0; x < TW; x++) {
+        double a = 2 * M_PI * kx * x / TW + p;
+        row_s[2 * x] = (float)sin(a);
+        row_s[2 * x + 1] = (float)cos(a);
+    }
+    for (int y = 0; y < TH; y++) {
+        double b = 2 * M_PI * ky * y / TH;
+        col_s[2 * y] = (float)sin(b);
+        col_s[2 * y + 1] = (float)cos(b);
+    }
+    for (int y = 0; y < TH; y++) {
+        float sb = col_s[2 * y], cb = col_s[2 * y + 1];
+        float *o = field + (size_t)y * TW;
+        for (int x = 0; x < TW; x++) /* sin(a + b) */
+            o[x] += (float)amp * (row_s[2 * x] * cb + row_s[2 * x + 1] * sb);
+    }
+}
+
+static void unit_rms(float *f, size_t n)
+{
+    double ss = 0;
+    for (size_t i = 0; i < n; i++)
+        ss += (double)f[i] * f[i];
+    float k = ss > 0 ? (float)(1.0 / sqrt(ss / (double)n)) : 1.0f;
+    for (size_t i = 0; i < n; i++)
+        f[i] *= k;
+}
+
+/* Wave texture from sums of sinusoids with whole cycles per tile (so the
+ * tile wraps seamlessly): a long swell, fine ripples on it, and sparse
+ * glints where ripple crests ride on swell crests and mirror the bright
+ * sky.  Scaled so the brightest glint is +1; d->tex_lo is the deepest
+ * trough. */
+static int harbour_texture(demo_source *d)
+{
+    enum { NC = 36, NF = 16 };
+    const size_t n = (size_t)TW * TH;
     uint64_t st = d->seed ^ 0xC0FFEE1234ULL;
+    /* Ripples as fine as the frame shows without aliasing: a wavelength of
+     * at least 3 pixels, i.e. 3 / (texel height) texels. */
+    double sv = d->h / 720.0;
+    int ky_max = (int)(TH * sv / 3.0);
+    if (ky_max > TH / 2)
+        ky_max = TH / 2;
     float *row_s = malloc(sizeof(float) * TW * 2), *col_s = malloc(sizeof(float) * TH * 2);
-    memset(d->tex, 0, sizeof(float) * TW * TH);
-    if (!row_s || !col_s) {
+    float *fine = malloc(sizeof(float) * n);
+    if (!row_s || !col_s || !fine) {
         free(row_s);
         free(col_s);
-        return;
+        free(fine);
+        return -ENOMEM;
     }
-    for (int c = 0; c < NC; c++) {
-        int ky = 3 + (int)(rnd01(&st) * 20);          /* 6..43 texel wavelengths across */
-        int kx = (int)((rnd01(&st) - 0.5) * 2 * 40);   /* mostly long along the horizon */
-        double amp = 1.0 / (1.0 + 0.08 * ky);
-        double p = 2 * M_PI * rnd01(&st);
-        for (int x = 0; x < TW; x++) {
-            double a = 2 * M_PI * kx * x / TW + p;
-            row_s[2 * x] = (float)sin(a);
-            row_s[2 * x + 1] = (float)cos(a);
-        }
-        for (int y = 0; y < TH; y++) {
-            double b = 2 * M_PI * ky * y / TH;
-            col_s[2 * y] = (float)sin(b);
-            col_s[2 * y + 1] = (float)cos(b);
-        }
-        for (int y = 0; y < TH; y++) {
-            float sb = col_s[2 * y], cb = col_s[2 * y + 1];
-            float *o = d->tex + (size_t)y * TW;
-            for (int x = 0; x < TW; x++) /* sin(a + b) */
-                o[x] += (float)amp * (row_s[2 * x] * cb + row_s[2 * x + 1] * sb);
-        }
+    memset(d->tex, 0, sizeof(float) * n);
+    memset(fine, 0, sizeof(float) * n);
+    for (int c = 0; c < NC; c++) { /* swell: 6..43 texel wavelengths across, long along */
+        int ky = 3 + (int)(rnd01(&st) * 20);
+        int kx = (int)((rnd01(&st) - 0.5) * 2 * 40);
+        add_wave(d->tex, row_s, col_s, kx, ky, 1.0 / (1.0 + 0.08 * ky), 2 * M_PI * rnd01(&st));
+    }
+    for (int c = 0; c < NF; c++) {
+        int ky = (int)(ky_max * (0.55 + 0.45 * rnd01(&st)));
+        int kx = (int)((rnd01(&st) - 0.5) * 2 * 60);
+        add_wave(fine, row_s, col_s, kx, ky, 1.0, 2 * M_PI * rnd01(&st));
     }
     free(row_s);
     free(col_s);
-    /* Sharpen crests, flatten troughs, then scale to -1..1 around zero. */
-    double mean = 0, mx = 0;
-    for (int i = 0; i < TW * TH; i++) {
-        float v = d->tex[i];
-        v = v > 0 ? v * v * 0.35f + v : v * 0.6f;
-        d->tex[i] = v;
+    unit_rms(d->tex, n);
+    unit_rms(fine, n);
+    double mean = 0;
+    for (size_t i = 0; i < n; i++) {
+        double sw = d->tex[i], fr = fine[i];
+        double g = fr + 0.6 * sw - 1.9;
+        double v = 0.35 * sw + 0.25 * fr + (g > 0 ? 3.0 * g * g : 0);
+        d->tex[i] = (float)v;
         mean += v;
     }
-    mean /= TW * TH;
-    for (int i = 0; i < TW * TH; i++) {
-        double v = fabs(d->tex[i] - mean);
-        if (v > mx)
-            mx = v;
+    free(fine);
+    mean /= (double)n;
+    double hi = 0, lo = 0;
+    for (size_t i = 0; i < n; i++) {
+        double v = d->tex[i] - mean;
+        hi = v > hi ? v : hi;
+        lo = v < lo ? v : lo;
     }
-    for (int i = 0; i < TW * TH; i++)
-        d->tex[i] = (float)((d->tex[i] - mean) / (mx > 0 ? mx : 1));
+    for (size_t i = 0; i < n; i++)
+        d->tex[i] = (float)((d->tex[i] - mean) / hi);
+    d->tex_lo = lo / hi;
+    /* Quantiser: square-root companding keeps fine steps where most of the
+     * sea lives (near 0) and coarse ones for the rare bright glints. */
+    for (int i = 0; i < QN; i++) {
+        double v = 2.0 * i / (QN - 1) - 1.0;
+        double u = v < 0 ? -sqrt(-v) : sqrt(v);
+        int q = (int)lround((u + 1.0) * 0.5 * (NT - 1));
+        d->quant[i] = (uint8_t)(q < 0 ? 0 : q > NT - 1 ? NT - 1 : q);
+    }
+    return 0;
+}
+
+/* Texture value a quantised level stands for (inverse of the companding). */
+static double level_value(int q)
+{
+    double u = 2.0 * q / (NT - 1) - 1.0;
+    return u < 0 ? -u * u : u * u;
 }
 
 /* Sky colour (linear, exposure 0) at altitude a above the horizon, in
@@ -431,17 +488,23 @@ static rgb sky_colour(double a)
 }
 
 /* Sea colour at depth dn below the horizon (frame heights): the base tone
- * and how much one unit of wave texture adds.  Linear in the texture so
- * blurring the texture is blurring the sea. */
-static void sea_colour(double dn, rgb *base, rgb *var)
+ * and what one unit of wave texture adds.  Linear in the texture, so
+ * blurring the texture is blurring the sea.  lo is the texture's deepest
+ * trough: the swing is sized so it leaves a fifth of the base there. */
+static void sea_colour(double dn, double lo, rgb *base, rgb *var)
 {
     static const rgb far = {0.135f, 0.088f, 0.078f}, near = {0.018f, 0.03f, 0.052f};
+    static const rgb glint = {0.40f, 0.22f, 0.10f}; /* the warm sky, mirrored */
     double f = 1.0 - exp(-(dn > 0 ? dn : 0) / 0.15);
     *base = mix(far, near, f);
-    *var = scale(*base, 0.18 + 0.5 * f);
-    /* The far sea mirrors the warm sky: wave faces carry more of it. */
-    var->r += (float)(0.03 * (1 - f));
-    var->g += (float)(0.012 * (1 - f));
+    double k = (0.8 / (lo < -0.05 ? -lo : 0.05)) * (0.25 + 0.75 * f);
+    /* glints mirror the sky, but no more than the trough can pay for */
+    double gk = 0.55 * (0.3 + 0.7 * f);
+    rgb v = scale(*base, k);
+    rgb g = scale(glint, gk);
+    double room = -lo > 0.05 ? 0.8 / -lo : 16;
+    *var = (rgb){fminf(v.r + g.r, (float)(base->r * room)), fminf(v.g + g.g, (float)(base->g * room)),
+                 fminf(v.b + g.b, (float)(base->b * room))};
 }
 
 /* ---- harbour: per frame ------------------------------------------------- */
@@ -455,10 +518,10 @@ static int harbour_tables(demo_source *d, double e, double sigma_e, double ds, i
         d->sky[i] = pack(d, scale(sky_colour(i * ds / H), e));
     for (int i = 0; i < nsea && i < d->nrows; i++) {
         rgb b, v;
-        sea_colour(i * 2 * ds / H, &b, &v);
+        sea_colour(i * 2 * ds / H, d->tex_lo, &b, &v);
         uint32_t *row = d->sea + (size_t)i * NT;
         for (int q = 0; q < NT; q++) {
-            double tx = 2.0 * q / (NT - 1) - 1.0;
+            double tx = level_value(q);
             rgb c = {b.r + (float)tx * v.r, b.g + (float)tx * v.g, b.b + (float)tx * v.b};
             row[q] = pack(d, scale(c, e));
         }
@@ -475,10 +538,10 @@ static int harbour_tables(demo_source *d, double e, double sigma_e, double ds, i
         double a = phi(dd / sigma_e);
         rgb s = dd < 0 ? sky_colour(-dd / H) : sky0;
         rgb b, v;
-        sea_colour(dd > 0 ? dd / H : 0, &b, &v);
+        sea_colour(dd > 0 ? dd / H : 0, d->tex_lo, &b, &v);
         uint32_t *row = d->band + (size_t)j * NT;
         for (int q = 0; q < NT; q++) {
-            double tx = 2.0 * q / (NT - 1) - 1.0;
+            double tx = level_value(q);
             rgb c = {b.r + (float)tx * v.r, b.g + (float)tx * v.g, b.b + (float)tx * v.b};
             row[q] = pack(d, scale(mix(s, c, a), e));
         }
@@ -622,6 +685,17 @@ static void draw_boat(demo_source *d, uint8_t *dst, int stride, const harbour_st
     }
 }
 
+/* Blurred texture level at fixed-point texel position (tu, tv): nearest
+ * along the horizon, linear across it (so a tilted horizon shows no seams
+ * where the sampled texel row steps), in quantiser steps: integers only. */
+static inline int tex_level(const demo_source *d, uint32_t tu, uint32_t tv)
+{
+    uint32_t c = (tu >> 16) & (TW - 1), r0 = (tv >> 16) & (TH - 1), r1 = (r0 + 1) & (TH - 1);
+    int32_t f = (int32_t)((tv >> 4) & 0xFFF); /* 12-bit fraction */
+    int32_t k0 = d->texk[r0 * TW + c], k1 = d->texk[r1 * TW + c];
+    return d->quant[k0 + (((k1 - k0) * f) >> 12)];
+}
+
 static void harbour_render(demo_source *d, double t, uint8_t *dst, int stride, cap_truth *tr)
 {
     harbour_state hs = harbour_at(d, t);
@@ -635,15 +709,14 @@ static void harbour_render(demo_source *d, double t, uint8_t *dst, int stride, c
      * so straight edges are drawn with that much extra blur (antialiasing). */
     double sigma_e = sqrt(sigma * sigma + 1.0 / 12.0);
     double ds = d->h > 1080 ? d->h / 1080.0 : 1.0; /* table row spacing, px */
-    double su = 4.0 * d->h / 720.0, sv = d->h / 720.0; /* texel size, px */
+    double su = 2.0 * d->h / 720.0, sv = d->h / 720.0; /* texel size, px */
 
-    /* Waves: blur the tile by sigma in texel units, then quantise. */
+    /* Waves: blur the tile by sigma in texel units. */
     blur_plane(d->tex, d->tmp, d->tmp, TW, TH, sigma / su, 0, EDGE_WRAP);
     tile_blur_cols(d->tmp, d->texb, sigma / sv);
     for (int i = 0; i < TW * TH; i++) {
-        float v = d->texb[i];
-        int q = (int)((v + 1.0f) * (0.5f * (NT - 1)) + 0.5f);
-        d->texq[i] = (uint8_t)(q < 0 ? 0 : q >= NT ? NT - 1 : q);
+        int k = (int)((d->texb[i] + 1.0f) * (0.5f * (QN - 1)) + 0.5f);
+        d->texk[i] = (uint16_t)(k < 0 ? 0 : k >= QN ? QN - 1 : k);
     }
     double th = hs.tilt_deg * M_PI / 180.0;
     double s = sin(th), c = cos(th);
@@ -722,7 +795,7 @@ static void harbour_render(demo_source *d, double t, uint8_t *dst, int stride, c
                 for (int x = x0; x < x1; x++, k += dk, tu += dtu, tv += dtv) {
                     int i = k >> 16;
                     i = i < 0 ? 0 : i > maxband ? maxband : i;
-                    int q = d->texq[((tv >> 16) & (TH - 1)) * TW + ((tu >> 16) & (TW - 1))];
+                    int q = tex_level(d, tu, tv);
                     row[x] = d->band[i * NT + q];
                 }
             } else {
@@ -730,7 +803,7 @@ static void harbour_render(demo_source *d, double t, uint8_t *dst, int stride, c
                 for (int x = x0; x < x1; x++, k += dk, tu += dtu, tv += dtv) {
                     int i = k >> 16;
                     i = i < 0 ? 0 : i > maxrow ? maxrow : i;
-                    int q = d->texq[((tv >> 16) & (TH - 1)) * TW + ((tu >> 16) & (TW - 1))];
+                    int q = tex_level(d, tu, tv);
                     row[x] = d->sea[i * NT + q];
                 }
             }
@@ -770,16 +843,15 @@ static int harbour_alloc(demo_source *d)
     size_t tmpn = d->mask_cap > (size_t)TW * TH ? d->mask_cap : (size_t)TW * TH;
     d->tex = malloc(sizeof(float) * TW * TH);
     d->texb = malloc(sizeof(float) * TW * TH);
+    d->texk = malloc(sizeof(uint16_t) * TW * TH);
     d->tmp = malloc(sizeof(float) * tmpn);
-    d->texq = malloc((size_t)TW * TH);
     d->sky = malloc(sizeof(uint32_t) * (size_t)d->nrows);
     d->sea = malloc(sizeof(uint32_t) * (size_t)d->nrows * NT);
     d->band = malloc(sizeof(uint32_t) * (size_t)d->band_cap * NT);
     d->mask = malloc(sizeof(float) * d->mask_cap * 2);
-    if (!d->tex || !d->texb || !d->tmp || !d->texq || !d->sky || !d->sea || !d->band || !d->mask)
+    if (!d->tex || !d->texb || !d->texk || !d->tmp || !d->sky || !d->sea || !d->band || !d->mask)
         return -ENOMEM;
-    harbour_texture(d);
-    return 0;
+    return harbour_texture(d);
 }
 
 /* ---- tabletop ------------------------------------------------------------ */
@@ -1067,8 +1139,8 @@ static void demo_destroy(cap_source *s)
     demo_source *d = (demo_source *)s;
     free(d->tex);
     free(d->texb);
+    free(d->texk);
     free(d->tmp);
-    free(d->texq);
     free(d->sky);
     free(d->sea);
     free(d->band);
