@@ -949,13 +949,18 @@ static double jug_at(const jug_geom *j, double x, double y, rgb *out)
 static rgb table_at(const demo_source *d, const jug_geom *j, double x, double y, double edge_y)
 {
     double W = d->w, Hh = d->h;
-    static const rgb paper = {0.36f, 0.33f, 0.29f}, wood = {0.045f, 0.026f, 0.016f};
+    static const rgb paper = {0.36f, 0.33f, 0.29f}, wood = {0.05f, 0.029f, 0.018f};
+    double px = Hh > 1080 ? Hh / 1080.0 : 1.0; /* detail scale: pixels at 1080 lines */
     /* key light pool on the backdrop, falling off from the upper left */
     double kx = 0.32 * W, ky = 0.22 * Hh, R = 0.75 * Hh;
     double r2 = ((x - kx) * (x - kx) + (y - ky) * (y - ky)) / (R * R);
     double k = 0.30 + 0.85 * exp(-r2);
     /* the sweep darkens a little toward the top */
     k *= 0.8 + 0.2 * clampd(y / Hh, 0, 1);
+    /* paper fibre: a faint per-fibre speckle */
+    uint64_t hs = d->seed ^ ((uint64_t)(int64_t)floor(x / px) * 0x9E3779B1ull) ^
+                  ((uint64_t)(int64_t)floor(y / px) * 0x85EBCA77ull << 20);
+    k *= 1.0 + 0.015 * (2.0 * rnd01(&hs) - 1.0);
     rgb c = scale(paper, k);
     /* soft contact shadow of the jug, thrown right by the key light */
     double sx = (x - (j->xc + 0.35 * j->R)) / (1.5 * j->R);
@@ -964,13 +969,17 @@ static rgb table_at(const demo_source *d, const jug_geom *j, double x, double y,
         c = scale(c, 1.0 - 0.6 * exp(-(sx * sx + sy * sy)));
     /* front edge: a thin highlight where the rounded edge of the top turns
      * toward the light, then the dark front face below the edge line */
-    double below = y - edge_y, px = Hh > 1080 ? Hh / 1080.0 : 1.0;
+    double below = y - edge_y;
     double hz = (below + 1.2 * px) / (0.7 * px);
     double hl = exp(-0.5 * hz * hz);
     static const rgb edge_hl = {0.42f, 0.38f, 0.33f};
     double a = clampd(below + 0.5, 0, 1);
     double fade = clampd(below / (0.25 * Hh), 0, 1);
-    c = mix(c, scale(wood, 1.0 - 0.5 * fade), a);
+    /* wood grain along the edge: fine wavy lines */
+    double grain = sin(2 * M_PI * (below / (3.3 * px) + 0.9 * sin(x / (61 * px)) +
+                                   0.35 * sin(x / (17 * px)))) *
+                   (0.55 + 0.45 * sin(x / (23 * px) + below / (9 * px)));
+    c = mix(c, scale(wood, (1.0 - 0.5 * fade) * (1.0 + 0.3 * grain)), a);
     c = mix(c, edge_hl, 0.6 * hl);
     return c;
 }
