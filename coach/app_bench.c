@@ -128,8 +128,8 @@ static int bench_size(int w, int h, int frames)
 {
     size_t bytes = (size_t)w * h * 4;
     int nb = (int)(BENCH_CACHE_BYTES / bytes) + 1;
-    if (nb < 2)
-        nb = 2;
+    if (nb < 3)
+        nb = 3;
     if (nb > BENCH_MAX_BUFS)
         nb = BENCH_MAX_BUFS;
     uint8_t *buf[BENCH_MAX_BUFS] = { 0 };
@@ -167,50 +167,46 @@ static int bench_size(int w, int h, int frames)
 
     uint64_t sink = 0;
     const double fps = 30.0;
-    for (int pass = 0; pass < 2; pass++) {
-        int warm = 5; /* untimed frames first: page faults, branch predictors */
-        for (int i = -warm; i < frames; i++) {
-            int k = (i + warm) % nb;
-            coach_frame f = { .data = buf[k], .w = w, .h = h, .stride = w * 4,
-                              .format = COACH_FMT_XRGB8888 };
-            double t = (i + warm) / fps;
-            if (pass == 0) {
-                /* stages one by one, and the floor on another frame so
-                 * it is as cold as the analysed one */
-                coach_aimg img;
-                double t0 = cpu_ms();
-                sink += read_once(buf[(k + nb / 2) % nb], bytes);
-                double t1 = cpu_ms();
-                memset(res, 0, sizeof(*res));
-                if (coach_tone_run(tone, &f, res, &img)) {
-                    fprintf(stderr, "vfcoach bench: %dx%d: tone pass failed\n", w, h);
-                    goto out;
-                }
-                double t2 = cpu_ms();
-                coach_compose_run(comp, &img, w, h, t, &cfg, res);
-                double t3 = cpu_ms();
-                coach_score_terms(&cfg, sc.have, res);
-                coach_score_update(&sc, &cfg, t, res);
-                coach_score_hints(&cfg, res);
-                double t4 = cpu_ms();
-                if (i >= 0) {
-                    t_floor[i] = t1 - t0;
-                    t_tone[i] = t2 - t1;
-                    t_comp[i] = t3 - t2;
-                    t_score[i] = t4 - t3;
-                }
-            } else {
-                double c0 = cpu_ms(), t0 = now_ms();
-                if (coach_analyze(an, &f, t, res)) {
-                    fprintf(stderr, "vfcoach bench: %dx%d: analysis failed\n", w, h);
-                    goto out;
-                }
-                double t1 = now_ms(), c1 = cpu_ms();
-                if (i >= 0) {
-                    t_total[i] = t1 - t0;
-                    c_total[i] = c1 - c0;
-                }
-            }
+    /* One loop, both measurements per step, so both see the same machine
+     * load: the floor reads frame k+2, the stages run on frame k, the whole
+     * analyzer on frame k+1; each was last touched nb steps ago. */
+    const int warm = 5; /* untimed steps first: page faults, branch predictors */
+    for (int i = -warm; i < frames; i++) {
+        int k = (i + warm) % nb;
+        coach_frame f = { .data = buf[k], .w = w, .h = h, .stride = w * 4,
+                          .format = COACH_FMT_XRGB8888 };
+        coach_frame f2 = f;
+        f2.data = buf[(k + 1) % nb];
+        double t = (i + warm) / fps;
+        coach_aimg img;
+        double t0 = cpu_ms();
+        sink += read_once(buf[(k + 2) % nb], bytes);
+        double t1 = cpu_ms();
+        memset(res, 0, sizeof(*res));
+        if (coach_tone_run(tone, &f, res, &img)) {
+            fprintf(stderr, "vfcoach bench: %dx%d: tone pass failed\n", w, h);
+            goto out;
+        }
+        double t2 = cpu_ms();
+        coach_compose_run(comp, &img, w, h, t, &cfg, res);
+        double t3 = cpu_ms();
+        coach_score_terms(&cfg, sc.have, res);
+        coach_score_update(&sc, &cfg, t, res);
+        coach_score_hints(&cfg, res);
+        double t4 = cpu_ms();
+        double c0 = cpu_ms(), w0 = now_ms();
+        if (coach_analyze(an, &f2, t, res)) {
+            fprintf(stderr, "vfcoach bench: %dx%d: analysis failed\n", w, h);
+            goto out;
+        }
+        double w1 = now_ms(), c1 = cpu_ms();
+        if (i >= 0) {
+            t_floor[i] = t1 - t0;
+            t_tone[i] = t2 - t1;
+            t_comp[i] = t3 - t2;
+            t_score[i] = t4 - t3;
+            t_total[i] = w1 - w0;
+            c_total[i] = c1 - c0;
         }
     }
     printf("size %dx%d: %d frames (%d distinct, XRGB8888), one thread; medians of thread CPU "
