@@ -124,7 +124,13 @@ void coach_score_terms(const coach_config *cfg, int have_prev, coach_result *r)
     on[T_HIGHLIGHTS] = isfinite(r->clip_high);
     on[T_SHADOWS] = isfinite(r->clip_low);
     if (isfinite(r->sharpness) && r->sharpness >= 0) {
-        v[T_SHARPNESS] = r->sharpness / (r->sharpness + SHARP_HALF);
+        /* A smooth backdrop or sky lowers the whole-frame variance without
+         * anything being out of focus: judge by the sharper of the frame
+         * and the subject's box when a subject was found. */
+        double sh = r->sharpness;
+        if (r->has_subject_focus && isfinite(r->subject_focus) && r->subject_focus > 1)
+            sh *= r->subject_focus;
+        v[T_SHARPNESS] = sh / (sh + SHARP_HALF);
         on[T_SHARPNESS] = 1;
     }
     if (isfinite(r->colourfulness)) {
