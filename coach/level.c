@@ -53,7 +53,6 @@ struct coach_level {
     int max_w, max_h, nrho_max;
     float *gx, *gy, *mag;
     int *edge_idx;       /* indices of edge pixels                          */
-    float *edge_ang;     /* gradient angle of each, degrees (-180..180]     */
     float *acc;          /* [2][NANG][nrho]                                 */
     float *pos, *wt;     /* sub-pixel positions along one line              */
     uint8_t *keep;
@@ -77,12 +76,11 @@ coach_level *coach_level_create(int max_w, int max_h)
     l->gy = malloc(n * sizeof(float));
     l->mag = malloc(n * sizeof(float));
     l->edge_idx = malloc(n * sizeof(int));
-    l->edge_ang = malloc(n * sizeof(float));
     l->acc = malloc((size_t)2 * NANG * nrho * sizeof(float));
     l->pos = malloc((size_t)len * sizeof(float));
     l->wt = malloc((size_t)len * sizeof(float));
     l->keep = malloc((size_t)len);
-    if (!l->gx || !l->gy || !l->mag || !l->edge_idx || !l->edge_ang || !l->acc || !l->pos ||
+    if (!l->gx || !l->gy || !l->mag || !l->edge_idx || !l->acc || !l->pos ||
         !l->wt || !l->keep) {
         coach_level_destroy(l);
         return NULL;
@@ -104,12 +102,26 @@ void coach_level_destroy(coach_level *l)
     free(l->gy);
     free(l->mag);
     free(l->edge_idx);
-    free(l->edge_ang);
     free(l->acc);
     free(l->pos);
     free(l->wt);
     free(l->keep);
     free(l);
+}
+
+/* One row of Sobel gradients from the rows above (a), at (b) and below (c);
+ * outputs start at the second pixel.  A function of its own so that the
+ * restrict promises let the compiler vectorise it. */
+static void sobel_row(const float *a, const float *b, const float *c, float *restrict gx,
+                      float *restrict gy, float *restrict m, int n)
+{
+    for (int i = 0; i < n; i++) {
+        float sx = (a[i + 2] - a[i]) + 2.0f * (b[i + 2] - b[i]) + (c[i + 2] - c[i]);
+        float sy = (c[i] - a[i]) + 2.0f * (c[i + 1] - a[i + 1]) + (c[i + 2] - a[i + 2]);
+        gx[i] = sx;
+        gy[i] = sy;
+        m[i] = sx * sx + sy * sy;
+    }
 }
 
 /* Sobel gradients on the interior (the 1-pixel border stays 0), with mag
@@ -130,18 +142,11 @@ static float gradients(coach_level *l, const float *p, int w, int h)
     memset(l->mag + (size_t)(h - 1) * w, 0, (size_t)w * sizeof(float));
     uint32_t total = 0;
     for (int y = 1; y < h - 1; y++) {
-        const float *restrict a = p + (size_t)(y - 1) * w, *restrict b = a + w, *restrict c = b + w;
-        float *restrict gx = l->gx + (size_t)y * w, *restrict gy = l->gy + (size_t)y * w;
-        float *restrict m = l->mag + (size_t)y * w;
+        const float *a = p + (size_t)(y - 1) * w;
+        float *gx = l->gx + (size_t)y * w, *gy = l->gy + (size_t)y * w, *m = l->mag + (size_t)y * w;
         gx[0] = gy[0] = m[0] = 0;
         gx[w - 1] = gy[w - 1] = m[w - 1] = 0;
-        for (int x = 1; x < w - 1; x++) {
-            float sx = (a[x + 1] - a[x - 1]) + 2.0f * (b[x + 1] - b[x - 1]) + (c[x + 1] - c[x - 1]);
-            float sy = (c[x - 1] - a[x - 1]) + 2.0f * (c[x] - a[x]) + (c[x + 1] - a[x + 1]);
-            gx[x] = sx;
-            gy[x] = sy;
-            m[x] = sx * sx + sy * sy;
-        }
+        sobel_row(a, a + w, a + 2 * w, gx + 1, gy + 1, m + 1, w - 2);
         if (y & 1)
             continue;
         for (int x = 1; x < w - 1; x += 2) {
@@ -205,7 +210,6 @@ static int thin_edges(coach_level *l, int w, int h, float thr)
             if (mm < m[x - off] || mm <= m[x + off])
                 continue;
             l->edge_idx[n] = y * w + x;
-            l->edge_ang[n] = atan2_deg(gy[x], gx[x]);
             n++;
         }
     }
@@ -219,8 +223,16 @@ static void vote(coach_level *l, int w, int h, int nedge, float thr, int nrho, i
     const float cx = 0.5f * (w - 1), cy = 0.5f * (h - 1), roff = 0.5f * (nrho - 1);
     const float cap = 3.0f * thr;
     memset(l->acc + (size_t)only * NANG * nrho, 0, (size_t)NANG * nrho * sizeof(float));
+    /* tan(33 deg): an edge of the horizontal family has a gradient within
+     * 33 degrees of vertical, |gx| <= 0.6494 |gy|; the vertical family the
+     * converse.  Checked before the angle is computed. */
+    const float t33 = 0.6494076f;
     for (int e = 0; e < nedge; e++) {
-        float ang = l->edge_ang[e];
+        int idx = l->edge_idx[e];
+        float gxv = l->gx[idx], gyv = l->gy[idx];
+        if (only == FAM_H ? fabsf(gxv) > t33 * fabsf(gyv) : fabsf(gyv) > t33 * fabsf(gxv))
+            continue;
+        float ang = atan2_deg(gyv, gxv);
         /* Fold the gradient direction to a line normal in [-90, 90). */
         if (ang >= 90.0f)
             ang -= 180.0f;
@@ -239,7 +251,6 @@ static void vote(coach_level *l, int w, int h, int nedge, float thr, int nrho, i
         }
         if (fam != only)
             continue;
-        int idx = l->edge_idx[e];
         float x = (float)(idx % w) - cx, y = (float)(idx / w) - cy;
         float m = sqrtf(l->mag[idx]);
         float wv = m < cap ? m : cap;

@@ -34,7 +34,7 @@ typedef struct region {
 struct coach_saliency {
     int max_w, max_h;
     coach_fft_plan plan;
-    float *rows;           /* max_h x N: the luma resampled along x      */
+    float *rows;           /* N x max_w: a plane resampled down the columns */
     float small[NN];       /* luma at N x N                              */
     float cx[2 * NN];      /* complex work                               */
     float scratch[2 * NN];
@@ -57,7 +57,7 @@ coach_saliency *coach_saliency_create(int max_w, int max_h)
         return NULL;
     s->max_w = max_w;
     s->max_h = max_h;
-    s->rows = malloc((size_t)max_h * N * sizeof(float));
+    s->rows = malloc((size_t)max_w * N * sizeof(float));
     s->regions = malloc(MAX_CAND * sizeof(region));
     if (!s->rows || !s->regions || coach_fft_plan_init(&s->plan, N) != 0) {
         coach_saliency_destroy(s);
@@ -101,16 +101,36 @@ static void make_spans(int n, span *sp)
     }
 }
 
-/* Resamples a w x h plane to N x N through s->rows (h x N). */
+/* Resamples a w x h plane to N x N: first down the columns, whole rows at
+ * a time (N x w into s->rows, contiguous and vectorisable), then along the
+ * N short rows. */
 static void resample_plane(coach_saliency *s, const float *src, int w, int h, float *dst)
 {
     span sx[N], sy[N];
     make_spans(w, sx);
     make_spans(h, sy);
     const float ax = (float)N / w, ay = (float)N / h;
-    for (int y = 0; y < h; y++) {
-        const float *r = src + (size_t)y * w;
-        float *o = s->rows + (size_t)y * N;
+    for (int j = 0; j < N; j++) {
+        const span *p = &sy[j];
+        float *restrict o = s->rows + (size_t)j * w;
+        const float *r0 = src + (size_t)p->i0 * w;
+        const float w0 = p->w0 * ay, w1 = p->w1 * ay;
+        for (int x = 0; x < w; x++)
+            o[x] = w0 * r0[x];
+        if (p->i1 > p->i0) {
+            for (int i = p->i0 + 1; i < p->i1; i++) {
+                const float *r = src + (size_t)i * w;
+                for (int x = 0; x < w; x++)
+                    o[x] += ay * r[x];
+            }
+            const float *r1 = src + (size_t)p->i1 * w;
+            for (int x = 0; x < w; x++)
+                o[x] += w1 * r1[x];
+        }
+    }
+    for (int y = 0; y < N; y++) {
+        const float *r = s->rows + (size_t)y * w;
+        float *o = dst + (size_t)y * N;
         for (int j = 0; j < N; j++) {
             const span *p = &sx[j];
             float acc = p->w0 * r[p->i0];
@@ -121,25 +141,6 @@ static void resample_plane(coach_saliency *s, const float *src, int w, int h, fl
             }
             o[j] = acc * ax;
         }
-    }
-    for (int j = 0; j < N; j++) {
-        const span *p = &sy[j];
-        float *o = dst + (size_t)j * N;
-        const float *r0 = s->rows + (size_t)p->i0 * N;
-        for (int x = 0; x < N; x++)
-            o[x] = p->w0 * r0[x];
-        if (p->i1 > p->i0) {
-            for (int i = p->i0 + 1; i < p->i1; i++) {
-                const float *r = s->rows + (size_t)i * N;
-                for (int x = 0; x < N; x++)
-                    o[x] += r[x];
-            }
-            const float *r1 = s->rows + (size_t)p->i1 * N;
-            for (int x = 0; x < N; x++)
-                o[x] += p->w1 * r1[x];
-        }
-        for (int x = 0; x < N; x++)
-            o[x] *= ay;
     }
 }
 
@@ -284,18 +285,21 @@ static float boundary_contrast(coach_saliency *s, const float *r, const float *g
                     }
                 proto[side * SEGS + sg][c] = 0.5f * (v[n / 2 - 1] + v[n / 2]);
             }
+    float *best = s->bmap;
+    for (int i = 0; i < NN; i++)
+        best[i] = 1e30f;
+    for (int p = 0; p < 4 * SEGS; p++) {
+        const float pr = proto[p][0], pg = proto[p][1], pb = proto[p][2];
+        for (int i = 0; i < NN; i++) {
+            float dr = s->cr[i] - pr, dg = s->cg[i] - pg, db = s->cb[i] - pb;
+            float d2 = dr * dr + dg * dg + db * db;
+            best[i] = d2 < best[i] ? d2 : best[i];
+        }
+    }
     float mx = 0;
     for (int i = 0; i < NN; i++) {
-        float best = 1e30f;
-        for (int p = 0; p < 4 * SEGS; p++) {
-            float dr = s->cr[i] - proto[p][0], dg = s->cg[i] - proto[p][1], db = s->cb[i] - proto[p][2];
-            float d2 = dr * dr + dg * dg + db * db;
-            if (d2 < best)
-                best = d2;
-        }
-        s->bmap[i] = sqrtf(best);
-        if (s->bmap[i] > mx)
-            mx = s->bmap[i];
+        best[i] = sqrtf(best[i]);
+        mx = best[i] > mx ? best[i] : mx;
     }
     return mx;
 }
