@@ -37,6 +37,8 @@ typedef struct app_opts {
 /* Subcommands: argv[0] is the subcommand name. Return the exit status. */
 int app_analyze_main(int argc, char **argv);
 int app_bench_main(int argc, char **argv);
+/* vfcoach inspect: composition internals of stills (coach/app_inspect.c). */
+int app_inspect_main(int argc, char **argv);
 
 /* ---- cameras (coach/app_list.c) ----------------------------------------
  * --list: prints every camera with its node, bus, stable links, formats,

@@ -677,6 +677,7 @@ typedef struct app_cmd {
 static const app_cmd commands[] = {
     {"analyze", app_analyze_main},
     {"bench", app_bench_main},
+    {"inspect", app_inspect_main},
 };
 
 int main(int argc, char **argv)
