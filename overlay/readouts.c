@@ -20,13 +20,13 @@ static inline int expand_limited(int y, const coach_frame *f)
     return v < 0 ? 0 : v > 255 ? 255 : v;
 }
 
-static inline int luma_fast(const coach_frame *f, int x, int y)
+static inline __attribute__((always_inline)) int luma_of(const coach_frame *f, coach_format fmt, int x, int y)
 {
     const uint8_t *row = f->data + (size_t)y * (size_t)f->stride;
     const uint8_t *p;
     /* BT.709 luma weights 0.2126, 0.7152, 0.0722 (ITU-R BT.709-6, item 3.2)
      * in 1/256ths: 54, 183, 19 - the same luma the coach clips at 250. */
-    switch (f->format) {
+    switch (fmt) {
     case COACH_FMT_XRGB8888: p = row + 4 * x; return (54 * p[2] + 183 * p[1] + 19 * p[0] + 128) >> 8;
     case COACH_FMT_RGB24: p = row + 3 * x; return (54 * p[0] + 183 * p[1] + 19 * p[2] + 128) >> 8;
     case COACH_FMT_BGR24: p = row + 3 * x; return (54 * p[2] + 183 * p[1] + 19 * p[0] + 128) >> 8;
@@ -39,7 +39,7 @@ static inline int luma_fast(const coach_frame *f, int x, int y)
 
 int ovl_luma_at(const coach_frame *f, int x, int y)
 {
-    return luma_fast(f, x, y);
+    return luma_of(f, f->format, x, y);
 }
 
 /* ---- zebras and peaking -------------------------------------------------- */
@@ -59,6 +59,51 @@ static int grow(void **p, size_t *cap, size_t need, size_t elem)
 static Uint32 argb(SDL_Color c)
 {
     return 0xff000000u | ((Uint32)c.r << 16) | ((Uint32)c.g << 8) | c.b;
+}
+
+typedef struct mask_args {
+    ovl_window *w;
+    const coach_frame *f;
+    int mw, mh, two;
+    Uint32 zc, pc;
+    int period, phase;
+} mask_args;
+
+static inline __attribute__((always_inline)) void mask_rows(const mask_args *m, coach_format fmt)
+{
+    ovl_window *w = m->w;
+    const coach_frame *f = m->f;
+    int mw = m->mw, mh = m->mh, fw = f->w, fh = f->h, two = m->two, period = m->period;
+    int thr = w->peak_threshold, zeb = w->zebras, peak = w->peaking;
+    Uint32 zc = m->zc, pc = m->pc;
+    for (int y = 0; y < mh; y++) {
+        int sy = (int)(((double)y + 0.5) * fh / mh);
+        if (sy >= fh)
+            sy = fh - 1;
+        uint32_t *out = w->mask + (size_t)y * mw;
+        int ycore = sy > 0 && sy < fh - 2;
+        int zrow = (y + m->phase) % period;
+        for (int x = 0; x < mw; x++) {
+            int sx = w->mask_sx[x];
+            uint32_t o = 0;
+            int l = luma_of(f, fmt, sx, sy);
+            if (zeb && l >= 250 && (x + zrow) % period < period / 2)
+                o = zc;
+            if (peak && ycore && sx > 0 && sx < fw - 2) {
+                int gx = abs(luma_of(f, fmt, sx + 1, sy) - luma_of(f, fmt, sx - 1, sy));
+                int gy = abs(luma_of(f, fmt, sx, sy + 1) - luma_of(f, fmt, sx, sy - 1));
+                if (two && gx + gy < thr) {
+                    int gx2 = abs(luma_of(f, fmt, sx + 2, sy) - l);
+                    int gy2 = abs(luma_of(f, fmt, sx, sy + 2) - l);
+                    gx = gx > gx2 ? gx : gx2;
+                    gy = gy > gy2 ? gy : gy2;
+                }
+                if (gx + gy >= thr)
+                    o = pc;
+            }
+            out[x] = o;
+        }
+    }
 }
 
 /* The marks are computed on a grid of at most OVL_MASK_MAX_PX samples over
@@ -87,7 +132,7 @@ void ovl_update_mask(ovl_window *w, const coach_frame *f)
         return;
     w->mw = mw;
     w->mh = mh;
-    int fw = f->w, fh = f->h;
+    int fw = f->w;
     for (int x = 0; x < mw; x++) {
         int sx = (int)(((double)x + 0.5) * fw / mw);
         w->mask_sx[x] = sx < fw ? sx : fw - 1;
@@ -100,34 +145,17 @@ void ovl_update_mask(ovl_window *w, const coach_frame *f)
      * they are not taken for scene texture (common practice). */
     int period = 12 / k < 4 ? 4 : 12 / k;
     int phase = (int)(w->frames / 2 % (uint64_t)period);
-    int thr = w->peak_threshold, zeb = w->zebras, peak = w->peaking;
-    for (int y = 0; y < mh; y++) {
-        int sy = (int)(((double)y + 0.5) * fh / mh);
-        if (sy >= fh)
-            sy = fh - 1;
-        uint32_t *out = w->mask + (size_t)y * mw;
-        int ycore = sy > 0 && sy < fh - 2;
-        int zrow = (y + phase) % period;
-        for (int x = 0; x < mw; x++) {
-            int sx = w->mask_sx[x];
-            uint32_t o = 0;
-            int l = luma_fast(f, sx, sy);
-            if (zeb && l >= 250 && (x + zrow) % period < period / 2)
-                o = zc;
-            if (peak && ycore && sx > 0 && sx < fw - 2) {
-                int gx = abs(luma_fast(f, sx + 1, sy) - luma_fast(f, sx - 1, sy));
-                int gy = abs(luma_fast(f, sx, sy + 1) - luma_fast(f, sx, sy - 1));
-                if (two && gx + gy < thr) {
-                    int gx2 = abs(luma_fast(f, sx + 2, sy) - l);
-                    int gy2 = abs(luma_fast(f, sx, sy + 2) - l);
-                    gx = gx > gx2 ? gx : gx2;
-                    gy = gy > gy2 ? gy : gy2;
-                }
-                if (gx + gy >= thr)
-                    o = pc;
-            }
-            out[x] = o;
-        }
+    mask_args m = {w, f, mw, mh, two, zc, pc, period, phase};
+    switch (f->format) {
+    /* one copy of the loop per layout, so the per-pixel luma is inlined
+     * without a switch inside the hot loop */
+    case COACH_FMT_XRGB8888: mask_rows(&m, COACH_FMT_XRGB8888); break;
+    case COACH_FMT_RGB24: mask_rows(&m, COACH_FMT_RGB24); break;
+    case COACH_FMT_BGR24: mask_rows(&m, COACH_FMT_BGR24); break;
+    case COACH_FMT_YUYV: mask_rows(&m, COACH_FMT_YUYV); break;
+    case COACH_FMT_NV12: mask_rows(&m, COACH_FMT_NV12); break;
+    case COACH_FMT_GREY: mask_rows(&m, COACH_FMT_GREY); break;
+    default: return;
     }
     w->mask_valid = 1;
 }
