@@ -133,6 +133,74 @@ static int header_size(const char *path, int *kind, int *w, int *h, const char *
     return rc;
 }
 
+static uint32_t crc_table[256];
+static void crc_init(void)
+{
+    for (uint32_t i = 0; i < 256; i++) {
+        uint32_t c = i;
+        for (int k = 0; k < 8; k++)
+            c = c & 1 ? 0xEDB88320u ^ (c >> 1) : c >> 1;
+        crc_table[i] = c;
+    }
+}
+
+/* Walks a PNG's chunks and checks each CRC (W3C PNG specification,
+ * sections 5.3 and 5.5: CRC-32 of ISO 3309 over type and data) up to IEND,
+ * so damaged files are refused here with a clear cause instead of inside
+ * libpng, which would also print its own message on stderr. */
+static int png_check(const char *path, const char **why)
+{
+    static pthread_once_t once = PTHREAD_ONCE_INIT;
+    pthread_once(&once, crc_init);
+    FILE *f = fopen(path, "rb");
+    if (!f) {
+        int e = errno;
+        *why = strerror(e);
+        return -e;
+    }
+    uint8_t buf[65536];
+    int rc = -EINVAL;
+    *why = "damaged PNG (truncated)";
+    if (fseek(f, 8, SEEK_SET) == 0) {
+        for (;;) {
+            uint8_t head[8];
+            if (fread(head, 1, 8, f) != 8)
+                break;
+            uint32_t len = (uint32_t)head[0] << 24 | (uint32_t)head[1] << 16 |
+                           (uint32_t)head[2] << 8 | head[3];
+            if (len > 0x7FFFFFFFu)
+                break;
+            uint32_t crc = 0xFFFFFFFFu;
+            for (int i = 4; i < 8; i++)
+                crc = crc_table[(crc ^ head[i]) & 0xFF] ^ (crc >> 8);
+            uint32_t left = len;
+            while (left > 0) {
+                size_t n = left < sizeof buf ? left : sizeof buf;
+                if (fread(buf, 1, n, f) != n)
+                    break;
+                for (size_t i = 0; i < n; i++)
+                    crc = crc_table[(crc ^ buf[i]) & 0xFF] ^ (crc >> 8);
+                left -= (uint32_t)n;
+            }
+            uint8_t tail[4];
+            if (left > 0 || fread(tail, 1, 4, f) != 4)
+                break;
+            uint32_t want = (uint32_t)tail[0] << 24 | (uint32_t)tail[1] << 16 |
+                            (uint32_t)tail[2] << 8 | tail[3];
+            if ((crc ^ 0xFFFFFFFFu) != want) {
+                *why = "damaged PNG (checksum mismatch)";
+                break;
+            }
+            if (!memcmp(head + 4, "IEND", 4)) {
+                rc = 0;
+                break;
+            }
+        }
+    }
+    fclose(f);
+    return rc;
+}
+
 /* ---- decoding ----------------------------------------------------------- */
 
 static pthread_once_t img_once = PTHREAD_ONCE_INIT;
@@ -152,6 +220,11 @@ static SDL_Surface *decode(const char *path, char *err, size_t errlen, int *errn
         *errnum = rc;
         return NULL;
     }
+    if (kind == KIND_PNG && (rc = png_check(path, &why)) < 0) {
+        put_line(err, errlen, "%s: %s", path, why);
+        *errnum = rc;
+        return NULL;
+    }
     pthread_once(&img_once, img_init);
     SDL_RWops *rw = SDL_RWFromFile(path, "rb");
     if (!rw) {
@@ -162,8 +235,12 @@ static SDL_Surface *decode(const char *path, char *err, size_t errlen, int *errn
     SDL_Surface *raw = IMG_LoadTyped_RW(rw, 1, kind == KIND_PNG ? "PNG" : "JPG");
     if (!raw) {
         const char *e = IMG_GetError();
+        /* SDL_image says "unsupported" when its own sniffing finds no image
+         * data after the signature we already checked: the file is damaged. */
+        if (!e || !*e || strstr(e, "Unsupported"))
+            e = "damaged data";
         put_line(err, errlen, "%s: cannot decode the %s image: %s", path,
-                 kind == KIND_PNG ? "PNG" : "JPEG", e && *e ? e : "damaged data");
+                 kind == KIND_PNG ? "PNG" : "JPEG", e);
         *errnum = -EINVAL;
         return NULL;
     }

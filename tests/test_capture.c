@@ -1041,6 +1041,19 @@ static void test_image_load_errors(void **state)
     assert_non_null(strstr(err, "broken.png"));
     assert_null(strchr(err, '\n'));
 
+    /* a good PNG cut short */
+    write_png(tmp_path("whole.png"), 40, 30, pat_ramp);
+    FILE *pf = fopen(tmp_path("whole.png"), "rb");
+    static uint8_t whole[1 << 16];
+    size_t nwhole = fread(whole, 1, sizeof whole, pf);
+    fclose(pf);
+    assert_true(nwhole > 100 && nwhole < sizeof whole);
+    write_bytes(tmp_path("cut.png"), whole, nwhole - 40);
+    assert_true(cap_image_load(tmp_path("cut.png"), &f, err, sizeof err) < 0);
+    print_message("cut short: %s\n", err);
+    assert_non_null(strstr(err, "cut.png"));
+    assert_non_null(strstr(err, "damaged"));
+
     write_bytes(tmp_path("notes.txt"), "hello\n", 6);
     assert_int_equal(cap_image_load(tmp_path("notes.txt"), &f, err, sizeof err), -EINVAL);
     assert_non_null(strstr(err, "notes.txt"));
