@@ -132,6 +132,8 @@ typedef struct coach_result {
     int has_lead_room;
     double lead_room;               /* space ahead / (ahead + behind), 0..1; 0.5 = centred */
     double motion_px_s;             /* global frame shift, full-res pixels per second */
+    int has_motion;                 /* 0: shift not measurable (first frame, too little
+                                       texture outside the subject); motion_px_s is 0 then */
     int has_subject_focus;
     double subject_focus;           /* sharpness in subject box / whole frame */
 

@@ -223,6 +223,7 @@ void coach_compose_run(coach_compose *c, const coach_aimg *img, int full_w, int 
     out->edge_intrusions = 0;
     out->lead_room = 0;
     out->motion_px_s = 0;
+    out->has_motion = 0;
     out->subject_focus = 0;
     memset(&out->subject, 0, sizeof out->subject);
     if (!c || !img || !img->luma || img->w < 16 || img->h < 16 || img->w > c->max_w ||
@@ -276,8 +277,10 @@ void coach_compose_run(coach_compose *c, const coach_aimg *img, int full_w, int 
     double dx = 0, dy = 0;
     int measured = coach_motion_run(c->motion, img->luma, img->w, img->h,
                                     sa.has_subject ? &sa.subject : NULL, &dx, &dy);
-    if (measured && c->have_t && t > c->t_prev)
+    if (measured && c->have_t && t > c->t_prev) {
+        out->has_motion = 1;
         out->motion_px_s = sqrt(dx * dx + dy * dy) * s / (t - c->t_prev);
+    }
     lead_room(c, t, measured, dx * s / full_w, out);
     c->t_prev = t;
     c->have_t = 1;
