@@ -245,6 +245,25 @@ void ovl_paint_mask(ovl_window *w, const coach_frame *f, void *pixels, int pitch
 
 /* ---- RGB histogram ------------------------------------------------------- */
 
+/* R'G'B' of one Y'CbCr sample: the inverse of the BT.601-7 / BT.709-6
+ * matrix, narrow range expanded first (Y' 16..235, C 16..240). */
+static void ycc_to_rgb(const coach_frame *f, int Y, int U, int V, int rgb[3])
+{
+    double y = Y, cb = U - 128, cr = V - 128;
+    if (f->range != COACH_RANGE_FULL) {
+        y = (y - 16) * 255.0 / 219.0;
+        cb *= 255.0 / 224.0;
+        cr *= 255.0 / 224.0;
+    }
+    double kr = f->matrix == COACH_MATRIX_BT709 ? 0.2126 : 0.299;
+    double kb = f->matrix == COACH_MATRIX_BT709 ? 0.0722 : 0.114, kg = 1 - kr - kb;
+    double r = y + 2 * (1 - kr) * cr, b = y + 2 * (1 - kb) * cb;
+    double g = (y - kr * r - kb * b) / kg;
+    double v[3] = {r, g, b};
+    for (int i = 0; i < 3; i++)
+        rgb[i] = v[i] < 0 ? 0 : v[i] > 255 ? 255 : (int)lround(v[i]);
+}
+
 void ovl_update_hist_rgb(ovl_window *w, const coach_frame *f)
 {
     if (w->hist_mode != 2 || !f || !f->data)
@@ -253,8 +272,11 @@ void ovl_update_hist_rgb(ovl_window *w, const coach_frame *f)
     w->hist_rgb_total = 0;
     int bpp = f->format == COACH_FMT_XRGB8888 ? 4 : 3;
     int ri = f->format == COACH_FMT_BGR24 || f->format == COACH_FMT_XRGB8888 ? 2 : 0;
-    if (f->format != COACH_FMT_XRGB8888 && f->format != COACH_FMT_RGB24 && f->format != COACH_FMT_BGR24)
-        return; /* Y'CbCr: the luma histogram stands in (drawn as such) */
+    int ycc = f->format == COACH_FMT_YUYV || f->format == COACH_FMT_NV12;
+    if (!ycc && f->format != COACH_FMT_XRGB8888 && f->format != COACH_FMT_RGB24 && f->format != COACH_FMT_BGR24)
+        return; /* grey: the luma histogram stands in (drawn as such) */
+    const uint8_t *uvp = f->data2 ? f->data2 : f->data + (size_t)f->stride * f->h;
+    int s2 = f->stride2 ? f->stride2 : f->stride;
     /* About 100k samples: enough for a histogram's shape, cheap at 4K. */
     int step = (int)sqrt((double)f->w * f->h / 100000.0);
     if (step < 1)
@@ -262,10 +284,22 @@ void ovl_update_hist_rgb(ovl_window *w, const coach_frame *f)
     for (int y = step / 2; y < f->h; y += step) {
         const uint8_t *row = f->data + (size_t)y * (size_t)f->stride;
         for (int x = step / 2; x < f->w; x += step) {
-            const uint8_t *p = row + (size_t)x * bpp;
-            w->hist_rgb[0][p[ri]]++;
-            w->hist_rgb[1][p[1]]++;
-            w->hist_rgb[2][p[2 - ri]]++;
+            int c[3];
+            if (f->format == COACH_FMT_YUYV) {
+                const uint8_t *q = row + 4 * (x >> 1);
+                ycc_to_rgb(f, row[2 * x], q[1], q[3], c);
+            } else if (f->format == COACH_FMT_NV12) {
+                const uint8_t *q = uvp + (size_t)(y >> 1) * s2 + (x & ~1);
+                ycc_to_rgb(f, row[x], q[0], q[1], c);
+            } else {
+                const uint8_t *p = row + (size_t)x * bpp;
+                c[0] = p[ri];
+                c[1] = p[1];
+                c[2] = p[2 - ri];
+            }
+            w->hist_rgb[0][c[0]]++;
+            w->hist_rgb[1][c[1]]++;
+            w->hist_rgb[2][c[2]]++;
             w->hist_rgb_total++;
         }
     }

@@ -455,6 +455,41 @@ static void test_readouts_yuv_frames(void **state)
     free(nv12);
 }
 
+/* The RGB histogram of a camera frame decodes Y'CbCr: 100 % colour bars
+ * in BT.601 narrow range are red Y'81 Cb90 Cr240, green Y'145 Cb54 Cr34,
+ * blue Y'41 Cb240 Cr110 (ITU-R BT.601 colour bar values, recalled from
+ * memory; they follow from the BT.601-7 matrix). */
+static void test_readouts_rgb_histogram_yuv(void **state)
+{
+    (void)state;
+    static const int bar[3][3] = {{81, 90, 240}, {145, 54, 34}, {41, 240, 110}};
+    int fw = 64, fh = 48;
+    uint8_t *yuyv = malloc((size_t)fw * fh * 2);
+    assert_non_null(yuyv);
+    ovl_window *w = twin(640, 360, "histogram-rgb");
+    for (int c = 0; c < 3; c++) {
+        for (int i = 0; i < fw * fh / 2; i++) {
+            yuyv[4 * i] = yuyv[4 * i + 2] = (uint8_t)bar[c][0];
+            yuyv[4 * i + 1] = (uint8_t)bar[c][1];
+            yuyv[4 * i + 3] = (uint8_t)bar[c][2];
+        }
+        coach_frame f = {.data = yuyv, .w = fw, .h = fh, .stride = fw * 2, .format = COACH_FMT_YUYV,
+                         .matrix = COACH_MATRIX_BT601, .range = COACH_RANGE_LIMITED};
+        ovl_update_hist_rgb(w, &f);
+        assert_true(w->hist_rgb_total > 100);
+        for (int ch = 0; ch < 3; ch++) {
+            uint64_t near = 0;
+            int want = ch == c ? 255 : 0;
+            for (int b = 0; b < 256; b++)
+                if (abs(b - want) <= 2)
+                    near += w->hist_rgb[ch][b];
+            assert_int_equal(near, w->hist_rgb_total);
+        }
+    }
+    ovl_destroy(w);
+    free(yuyv);
+}
+
 /* Mirrored, the level line leans the other way (the picture is flipped
  * left-right), and a lost source dims the last frame. */
 static void test_guides_mirror_and_lost(void **state)
@@ -983,6 +1018,7 @@ int main(void)
         cmocka_unit_test(test_readouts_zebras_only_clipped),
         cmocka_unit_test(test_readouts_peaking_only_edges),
         cmocka_unit_test(test_readouts_yuv_frames),
+        cmocka_unit_test(test_readouts_rgb_histogram_yuv),
         cmocka_unit_test(test_guides_mirror_and_lost),
         cmocka_unit_test(test_text_no_font_error),
         cmocka_unit_test(test_snapshot_roundtrip),
