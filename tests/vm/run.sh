@@ -121,10 +121,10 @@ OUT=$CACHE/guest.log
 KLOG=$CACHE/kernel.log
 rm -f "$OUT" "$KLOG"
 TQ=$(date +%s.%N)
-timeout --kill-after=5 "$TIMEOUT" qemu-system-x86_64 -accel tcg${VM_TCG_OPTS:-} -cpu ${VM_CPU:-max} -m 1024 -smp ${VM_SMP:-1} \
+timeout --kill-after=5 "$TIMEOUT" qemu-system-x86_64 -accel tcg${VM_TCG_OPTS:-} -cpu ${VM_CPU:-max} -m 1024 -smp ${VM_SMP:-2} \
     -kernel "$VMLINUZ" -initrd "$CACHE/initramfs.cpio" \
     -append "console=ttyS0 panic=-1 loglevel=4 rdinit=/init" \
-    -display none -monitor none -no-reboot \
+    -display none -monitor none -nic none -no-reboot \
     -serial "file:$KLOG" -serial "file:$OUT" </dev/null
 QRC=$?
 QT=$(awk -v a="$TQ" -v b="$(date +%s.%N)" 'BEGIN{printf "%.1f", b-a}')
