@@ -232,6 +232,9 @@ void ovl_update_hist_rgb(ovl_window *w, const coach_frame *f);
 void ovl_draw_subject(ovl_window *w, const coach_result *r);
 void ovl_draw_hud(ovl_window *w, const coach_result *r, const ovl_status *st);
 void ovl_spark_push(ovl_window *w, double t, double score);
+/* Swaps the words left/right (whole words, either case of the first
+ * letter) for a mirrored view. */
+void ovl_mirror_words(const char *in, char *out, size_t n);
 /* 8-bit luma (BT.709 weights on the encoded values; Y' for Y'CbCr, range
  * expanded) of one pixel. */
 int ovl_luma_at(const coach_frame *f, int x, int y);

@@ -519,6 +519,37 @@ static void meter(ovl_window *w, const coach_result *r)
 
 /* ---- text readouts ----------------------------------------------------------- */
 
+/* In a mirrored view the picture's left is on the screen's right: a hint
+ * that names a side is turned to match what the shooter sees.  Turning
+ * directions (clockwise) are about the camera itself and stay. */
+void ovl_mirror_words(const char *in, char *out, size_t n)
+{
+    size_t o = 0;
+    while (*in && o + 6 < n) {
+        int start = o == 0 || !((out[o - 1] >= 'a' && out[o - 1] <= 'z') || (out[o - 1] >= 'A' && out[o - 1] <= 'Z'));
+        const char *rep = NULL;
+        size_t skip = 0;
+        if (start && !strncmp(in, "left", 4))
+            rep = "right", skip = 4;
+        else if (start && !strncmp(in, "right", 5))
+            rep = "left", skip = 5;
+        else if (start && !strncmp(in, "Left", 4))
+            rep = "Right", skip = 4;
+        else if (start && !strncmp(in, "Right", 5))
+            rep = "Left", skip = 5;
+        char nx = rep ? in[skip] : 0;
+        if (rep && !((nx >= 'a' && nx <= 'z') || (nx >= 'A' && nx <= 'Z'))) {
+            size_t k = strlen(rep);
+            memcpy(out + o, rep, k);
+            o += k;
+            in += skip;
+        } else {
+            out[o++] = *in++;
+        }
+    }
+    out[o < n ? o : n - 1] = 0;
+}
+
 static void hints(ovl_window *w, const coach_result *r)
 {
     if (!w->hints || !r || r->nhints <= 0)
@@ -528,7 +559,12 @@ static void hints(ovl_window *w, const coach_result *r)
     int maxw = 0, lh = TTF_FontLineSkip(w->font);
     char line[COACH_MAX_HINTS][COACH_HINT_LEN + 8];
     for (int i = 0; i < n; i++) {
-        snprintf(line[i], sizeof line[i], "%s %s", i == 0 ? "▸" : "·", r->hints[i]);
+        char h[COACH_HINT_LEN];
+        if (w->mirror)
+            ovl_mirror_words(r->hints[i], h, sizeof h);
+        else
+            snprintf(h, sizeof h, "%s", r->hints[i]);
+        snprintf(line[i], sizeof line[i], "%s %s", i == 0 ? "▸" : "·", h);
         int tw, th;
         ovl_text_size(w, w->font, line[i], &tw, &th);
         if (tw > maxw)

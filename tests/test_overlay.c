@@ -490,6 +490,21 @@ static void test_readouts_rgb_histogram_yuv(void **state)
     free(yuyv);
 }
 
+/* Mirrored, "left" on screen is the picture's right (a mirror swaps
+ * left and right, nothing else): side words in hints swap, whole words
+ * only, and turning directions stay. */
+static void test_text_mirror_words(void **state)
+{
+    (void)state;
+    char out[COACH_HINT_LEN];
+    ovl_mirror_words("Move the subject toward the upper-left third", out, sizeof out);
+    assert_string_equal(out, "Move the subject toward the upper-right third");
+    ovl_mirror_words("Right edge: leave room on the left; rightly, leftover", out, sizeof out);
+    assert_string_equal(out, "Left edge: leave room on the right; rightly, leftover");
+    ovl_mirror_words("Rotate 2.1° clockwise", out, sizeof out);
+    assert_string_equal(out, "Rotate 2.1° clockwise");
+}
+
 /* Mirrored, the level line leans the other way (the picture is flipped
  * left-right), and a lost source dims the last frame. */
 static void test_guides_mirror_and_lost(void **state)
@@ -1020,6 +1035,7 @@ int main(void)
         cmocka_unit_test(test_readouts_yuv_frames),
         cmocka_unit_test(test_readouts_rgb_histogram_yuv),
         cmocka_unit_test(test_guides_mirror_and_lost),
+        cmocka_unit_test(test_text_mirror_words),
         cmocka_unit_test(test_text_no_font_error),
         cmocka_unit_test(test_snapshot_roundtrip),
         cmocka_unit_test(test_snapshot_failed_write_leaves_nothing),
