@@ -14,6 +14,11 @@ as PNG, runs `vfcoach analyze` on them and compares, per photo:
 The luma is 8-bit BT.709 (ITU-R BT.709-6 3.2) on the sRGB codes, rounded the
 way the tone pass documents it: (13933 R + 46871 G + 4732 B + 32768) >> 16.
 
+Also, through the same command line: uniform grey images at whole stops
+around middle grey (code = sRGB encoding of 0.18 * 2^k, IEC 61966-2-1) must
+read exposure_ev = k within 0.1 stop, and a frame with known shares of
+clipped pixels must read them within 0.5 % (the acceptance criteria).
+
 Usage: laplacian_ref.py VFCOACH.  Exit status 1 on any mismatch.
 """
 import json
@@ -33,6 +38,28 @@ PHOTOS = ["camera", "astronaut", "coffee", "chelsea", "rocket", "coins", "moon",
 def srgb_decode(v):
     v = v / 255.0
     return np.where(v <= 0.04045, v / 12.92, ((v + 0.055) / 1.055) ** 2.4)
+
+
+def srgb_encode(lin):
+    return 12.92 * lin if lin <= 0.0031308 else 1.055 * lin ** (1 / 2.4) - 0.055
+
+
+def synthetic():
+    """(name, rgb image, expected exposure stops or None)."""
+    out = []
+    for k in range(-4, 3):
+        code = int(round(255 * srgb_encode(0.18 * 2.0 ** k)))
+        out.append(("grey_ev%+d" % k, np.full((120, 160, 3), code, np.uint8), float(k)))
+    clip = np.full((100, 100, 3), 128, np.uint8)
+    flat = clip.reshape(-1, 3)
+    flat[:300] = 250
+    flat[300:500] = 255
+    flat[500:700] = 249
+    flat[700:1800] = 5
+    flat[1800:1900] = 0
+    flat[1900:2000] = 6
+    out.append(("clip_5_12", clip, None))
+    return out
 
 
 def reference(rgb):
@@ -61,6 +88,14 @@ def main():
             cv2.imwrite(path, cv2.cvtColor(img, cv2.COLOR_RGB2BGR))
             files.append(path)
             refs[path] = reference(img)
+        expect_ev = {}
+        for name, img, ev in synthetic():
+            path = os.path.join(tmp, name + ".png")
+            cv2.imwrite(path, cv2.cvtColor(img, cv2.COLOR_RGB2BGR))
+            files.append(path)
+            refs[path] = reference(img)
+            if ev is not None:
+                expect_ev[path] = ev
         out = subprocess.run([vf, "analyze"] + files, capture_output=True, text=True)
         if out.returncode != 0:
             print("check_laplacian: vfcoach analyze failed:", out.stderr.strip())
@@ -78,7 +113,9 @@ def main():
                 print("check_laplacian: no result for", name)
                 fails += 1
                 continue
-            d_sharp = abs(j["sharpness"] - ref["sharpness"]) / ref["sharpness"] * 100
+            d_sharp = abs(j["sharpness"] - ref["sharpness"]) / max(ref["sharpness"], 1e-9) * 100
+            if ref["sharpness"] == 0:
+                d_sharp = 0.0 if j["sharpness"] == 0 else 100.0
             d_m = abs(j["colourfulness"] - ref["colourfulness"]) / max(ref["colourfulness"], 1e-9) * 100
             print("%-22s %12.3f %12.3f %7.4f %8.3f %8.3f %7.3f %7.3f" % (
                 name, j["sharpness"], ref["sharpness"], d_sharp, j["colourfulness"],
@@ -91,6 +128,12 @@ def main():
                 ("clip_high", abs(j["clip_high"] - ref["clip_high"]) <= 0.005),
                 ("clip_low", abs(j["clip_low"] - ref["clip_low"]) <= 0.005),
             ]
+            if path in expect_ev:  # acceptance: whole stops within 0.1
+                checks.append(("exposure_ev %+d stop(s) within 0.1" % expect_ev[path],
+                               abs(j["exposure_ev"] - expect_ev[path]) <= 0.1))
+            if name.startswith("clip_"):  # 500 and 1200 of 10000 pixels
+                checks.append(("clip_high 5 %", abs(j["clip_high"] - 0.05) <= 0.005))
+                checks.append(("clip_low 12 %", abs(j["clip_low"] - 0.12) <= 0.005))
             for what, ok in checks:
                 if not ok:
                     print("check_laplacian: FAIL %s: %s" % (name, what))
