@@ -496,6 +496,13 @@ int ovl_draw(ovl_window *w, const cap_frame *f, const coach_result *r, const ovl
     w->fr = ovl_fit_rect(w->fw, w->fh, w->ww, w->wh);
     if (f)
         ovl_update_hist_rgb(w, &f->view);
+    coach_result stale;
+    if (st && st->source_lost && r && r->ready) {
+        /* the last result is not a ready frame any more: no cue over it */
+        stale = *r;
+        stale.ready = 0;
+        r = &stale;
+    }
 
     SDL_SetRenderDrawColor(w->ren, 8, 9, 12, 255);
     SDL_RenderClear(w->ren);
