@@ -29,7 +29,7 @@
 #define FAM_HALF_DEG 30.0         /* each family spans +-30 degrees          */
 #define BIN_DEG 0.5               /* Hough angle bin                          */
 #define NANG 121                  /* (2 * 30 / 0.5) + 1                       */
-#define VOTE_SPREAD 6             /* +-3 degrees around the gradient angle    */
+#define VOTE_SPREAD 4             /* +-2 degrees around the gradient angle    */
 #define T_ABS 12.0f               /* Sobel magnitude floor, ~3-6 luma levels  */
 #define MAX_PEAKS 12
 #define MAX_VERT_LINES 10
