@@ -245,14 +245,19 @@ cap_source *cap_v4l2_open(const char *dev, const cap_source_opts *o, char *err, 
         *at = 0;
     }
     struct stat st;
-    if (spec[0] == '/' || spec[0] == '.' || stat(spec, &st) == 0) {
+    if (stat(spec, &st) == 0 || !strncmp(spec, "/dev/", 5)) {
         snprintf(node, sizeof node, "%s%s", spec, suffix);
         return cap_v4l2_open_io(&cap_v4l2_io_default, node, o, err, errlen);
     }
     char path[64];
     if (resolve_name(spec, path, sizeof path) < 0) {
-        snprintf(err, errlen, "%s: no camera by that node, link or name ('vfcoach --list' shows the cameras)",
-                 spec);
+        /* --source sends mistyped file names here too: answer for both */
+        const char *dot = strrchr(spec, '.');
+        if (strchr(spec, '/') || (dot && strlen(dot) <= 5 && !strchr(dot, ' ')))
+            snprintf(err, errlen, "%s: no such file, folder or camera", spec);
+        else
+            snprintf(err, errlen, "%s: no camera by that node, link or name ('vfcoach --list' shows the cameras)",
+                     spec);
         return NULL;
     }
     snprintf(node, sizeof node, "%s%s", path, suffix);
