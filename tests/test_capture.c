@@ -502,7 +502,8 @@ static void test_demo_deterministic(void **state)
 static void test_demo_sizes(void **state)
 {
     (void)state;
-    static const int sizes[][2] = {{640, 480}, {1280, 720}, {1001, 777}, {1920, 1080}, {3840, 2160}};
+    static const int sizes[][2] = {{640, 480}, {1280, 720}, {1001, 777}, {1080, 1920}, {1920, 1080},
+                                   {3840, 2160}};
     const char *scenes[] = {"demo", "demo:tabletop"};
     for (size_t i = 0; i < sizeof sizes / sizeof sizes[0]; i++) {
         for (int k = 0; k < 2; k++) {
