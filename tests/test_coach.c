@@ -14,6 +14,8 @@
 
 #include "coach/coach.h"
 #include "coach/coach_internal.h"
+#include "capture/capture.h"
+#include "capture/capture_internal.h"
 
 /* ==== section A ==== */
 
@@ -280,6 +282,40 @@ static void test_exposure_stripes_no_alias(void **state)
         assert_float_equal(r.mean_luma, want, 0.01 * want);
         free((void *)f.data);
     }
+}
+
+/* Demo ground truth is honoured: the same scene rendered one stop brighter
+ * (twice the light: APEX / ISO 2720 exposure values step in powers of two)
+ * reads +1 EV, within 0.1 stop, through the whole analyzer. */
+static void test_exposure_demo_one_stop(void **state)
+{
+    (void)state;
+    static const char *const scenes[] = { "demo", "demo:tabletop" };
+    const int w = 960, h = 540;
+    uint8_t *buf = malloc((size_t)w * h * 4);
+    assert_non_null(buf);
+    for (int k = 0; k < 2; k++) {
+        char err[256];
+        cap_source_opts o = { .w = w, .h = h, .seed = 3 };
+        cap_source *s = cap_source_open(scenes[k], &o, err, sizeof(err));
+        assert_non_null(s);
+        double ev[2];
+        for (int i = 0; i < 2; i++) {
+            cap_demo_pin pin = { .exposure_ev = i ? 0.5 : -0.5, .blur_sigma = NAN,
+                                 .horizon_deg = NAN };
+            assert_int_equal(cap_demo_set_pin(s, &pin), 0);
+            cap_truth tr;
+            assert_int_equal(cap_demo_render(s, 4.0, buf, w * 4, &tr), 0);
+            coach_frame f = { .data = buf, .w = w, .h = h, .stride = w * 4,
+                              .format = COACH_FMT_XRGB8888 };
+            coach_result r;
+            assert_int_equal(a_analyze_once(&f, &r), 0);
+            ev[i] = r.exposure_ev;
+        }
+        assert_float_equal(ev[1] - ev[0], 1.0, 0.1);
+        cap_source_destroy(s);
+    }
+    free(buf);
 }
 
 /* Clip fractions: luma >= 250 is a clipped highlight, <= 5 a blocked
@@ -1370,6 +1406,7 @@ int main(void)
         cmocka_unit_test(test_luma_yuv_matches_rgb),
         cmocka_unit_test(test_exposure_whole_stops),
         cmocka_unit_test(test_exposure_stripes_no_alias),
+        cmocka_unit_test(test_exposure_demo_one_stop),
         cmocka_unit_test(test_clip_fractions_known),
         cmocka_unit_test(test_colourfulness_hasler_formula),
         cmocka_unit_test(test_colourfulness_word_categories),
