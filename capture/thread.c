@@ -197,6 +197,8 @@ static void run_device(cap_thread *t)
                 set_status(t, "%s: no frames for %d s", t->src->name, SILENT_MS / 1000);
             continue;
         }
+        if (silent_ms >= SILENT_MS)
+            set_status(t, "%s", t->src->name); /* frames again: drop the silence line */
         silent_ms = 0;
         /* POLLERR/POLLHUP too: produce() then reports what went wrong. */
         if (produce_once(t))
