@@ -104,7 +104,7 @@ static void seg_add(ovl_window *w, ovl_seg *list, int *n, float x0, float y0, fl
 
 void ovl_stroke_col(ovl_window *w, float x0, float y0, float x1, float y1, float width, SDL_Color c)
 {
-    ovl_layer *l = &w->layer;
+    ovl_layer *l = w->target ? w->target : &w->layer;
     if (l->ncasing >= OVL_SEGS || l->ncore >= OVL_SEGS)
         ovl_strokes_flush(w);
     seg_add(w, l->casing, &l->ncasing, x0, y0, x1, y1, width + 2.0f, ovl_casing);
@@ -118,7 +118,8 @@ void ovl_stroke(ovl_window *w, float x0, float y0, float x1, float y1, float wid
 
 void ovl_stroke_plain(ovl_window *w, float x0, float y0, float x1, float y1, float width, SDL_Color c)
 {
-    seg_add(w, w->layer.core, &w->layer.ncore, x0, y0, x1, y1, width, c);
+    ovl_layer *l = w->target ? w->target : &w->layer;
+    seg_add(w, l->core, &l->ncore, x0, y0, x1, y1, width, c);
 }
 
 void ovl_layer_free(ovl_layer *l)
@@ -134,9 +135,8 @@ void ovl_layer_free(ovl_layer *l)
 }
 
 /* Buffers follow the window size: reallocated on resize only. */
-static int layer_fit(ovl_window *w)
+static int layer_fit(ovl_window *w, ovl_layer *l)
 {
-    ovl_layer *l = &w->layer;
     if (l->px && l->w == w->ww && l->h == w->wh)
         return 0;
     ovl_layer_free(l);
@@ -231,21 +231,19 @@ static void raster(ovl_layer *l, const ovl_seg *s)
     }
 }
 
-void ovl_strokes_flush(ovl_window *w)
+static void layer_raster(ovl_layer *l)
 {
-    ovl_layer *l = &w->layer;
-    if (!l->ncasing && !l->ncore)
-        return;
-    if (layer_fit(w)) {
-        l->ncasing = l->ncore = 0;
-        return;
-    }
     for (int i = 0; i < l->ncasing; i++)
         raster(l, &l->casing[i]);
     for (int i = 0; i < l->ncore; i++)
         raster(l, &l->core[i]);
     l->ncasing = l->ncore = 0;
-    /* upload and blend runs of touched tiles, then clear them for next time */
+}
+
+/* Blends runs of touched tiles; upload: copy them to the texture first;
+ * clear: empty them afterwards (for the next strokes). */
+static void layer_blit(ovl_window *w, ovl_layer *l, int upload, int clear)
+{
     for (int ty = 0; ty < l->ty; ty++) {
         uint8_t *tr = l->tile + (size_t)ty * l->tx;
         for (int tx = 0; tx < l->tx;) {
@@ -255,20 +253,69 @@ void ovl_strokes_flush(ovl_window *w)
             }
             int e = tx;
             while (e < l->tx && tr[e])
-                tr[e++] = 0;
+                e++;
             SDL_Rect rc = {tx * OVL_TILE, ty * OVL_TILE, (e - tx) * OVL_TILE, OVL_TILE};
             if (rc.x + rc.w > l->w)
                 rc.w = l->w - rc.x;
             if (rc.y + rc.h > l->h)
                 rc.h = l->h - rc.y;
             uint32_t *p0 = l->px + (size_t)rc.y * l->w + rc.x;
-            SDL_UpdateTexture(l->tex, &rc, p0, l->w * 4);
+            if (upload)
+                SDL_UpdateTexture(l->tex, &rc, p0, l->w * 4);
             SDL_RenderCopy(w->ren, l->tex, &rc, &rc);
-            for (int y = 0; y < rc.h; y++)
-                memset(p0 + (size_t)y * l->w, 0, (size_t)rc.w * 4);
+            if (clear) {
+                for (int y = 0; y < rc.h; y++)
+                    memset(p0 + (size_t)y * l->w, 0, (size_t)rc.w * 4);
+                memset(tr + tx, 0, (size_t)(e - tx));
+            }
             tx = e;
         }
     }
+}
+
+void ovl_strokes_flush(ovl_window *w)
+{
+    ovl_layer *l = &w->layer;
+    if (w->target) {
+        layer_raster(w->target); /* a static layer in the making: keep it */
+        return;
+    }
+    if (!l->ncasing && !l->ncore)
+        return;
+    if (layer_fit(w, l)) {
+        l->ncasing = l->ncore = 0;
+        return;
+    }
+    layer_raster(l);
+    layer_blit(w, l, 1, 1);
+}
+
+int ovl_static_begin(ovl_window *w, const ovl_static_key *key)
+{
+    ovl_layer *l = &w->stat;
+    if (w->stat_valid && l->px && l->w == w->ww && l->h == w->wh && !memcmp(key, &w->stat_key, sizeof *key))
+        return 0;
+    w->stat_valid = 0;
+    if (layer_fit(w, l))
+        return -1;
+    memset(l->px, 0, (size_t)l->w * l->h * sizeof(uint32_t));
+    memset(l->tile, 0, (size_t)l->tx * l->ty);
+    l->ncasing = l->ncore = 0;
+    w->stat_key = *key;
+    w->target = l;
+    return 1;
+}
+
+void ovl_static_end(ovl_window *w, int built)
+{
+    ovl_layer *l = &w->stat;
+    w->target = NULL;
+    if (built > 0) {
+        layer_raster(l);
+        w->stat_valid = 1;
+    }
+    if (w->stat_valid)
+        layer_blit(w, l, built > 0, 0);
 }
 
 void ovl_frame_rect(ovl_window *w, float x, float y, float rw, float rh, float width, SDL_Color c)

@@ -2,6 +2,7 @@
  * golden spiral, centre mark, artificial horizon and crop masks. */
 #include <math.h>
 #include <stdio.h>
+#include <string.h>
 
 #include "overlay/overlay_internal.h"
 
@@ -223,12 +224,33 @@ void ovl_draw_guides(ovl_window *w, const coach_result *r)
         grid_lines(w, 1.0 / 3.0, 2.0 / 3.0);
     if (g[OVL_G_PHI])
         grid_lines(w, OVL_PHI_A, OVL_PHI_B);
-    if (g[OVL_G_DIAGONALS])
-        diagonals(w);
-    if (g[OVL_G_SPIRAL])
-        spiral(w, w->spiral_orient);
-    if (g[OVL_G_CENTRE])
-        centre_mark(w);
+    if (g[OVL_G_DIAGONALS] || g[OVL_G_SPIRAL] || g[OVL_G_CENTRE]) {
+        /* these do not move with the picture: drawn once, blended each frame */
+        ovl_static_key k;
+        memset(&k, 0, sizeof k);
+        k.ww = w->ww;
+        k.wh = w->wh;
+        k.mirror = w->mirror;
+        k.diag = g[OVL_G_DIAGONALS];
+        k.spiral = g[OVL_G_SPIRAL];
+        k.orient = w->spiral_orient;
+        k.centre = g[OVL_G_CENTRE];
+        k.px = line_px(w);
+        k.fx = w->fr.x;
+        k.fy = w->fr.y;
+        k.fw = w->fr.w;
+        k.fh = w->fr.h;
+        int built = ovl_static_begin(w, &k);
+        if (built > 0) {
+            if (g[OVL_G_DIAGONALS])
+                diagonals(w);
+            if (g[OVL_G_SPIRAL])
+                spiral(w, w->spiral_orient);
+            if (g[OVL_G_CENTRE])
+                centre_mark(w);
+        }
+        ovl_static_end(w, built);
+    }
     ovl_strokes_flush(w);
     if (g[OVL_G_HORIZON])
         horizon(w, r);

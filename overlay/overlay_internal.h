@@ -90,6 +90,12 @@ typedef struct ovl_layer {
     int ncasing, ncore;
 } ovl_layer;
 
+/* What the static guide layer was drawn for (compared bytewise). */
+typedef struct ovl_static_key {
+    int ww, wh, mirror, diag, spiral, orient, centre, px;
+    float fx, fy, fw, fh;
+} ovl_static_key;
+
 /* ---- the window ---------------------------------------------------------- */
 
 #define OVL_SPARK_N 2048     /* score samples kept (10 s at up to 200 fps) */
@@ -135,6 +141,10 @@ struct ovl_window {
     ovl_text_slot text[OVL_TEXT_SLOTS];
 
     ovl_layer layer;           /* anti-aliased strokes                     */
+    ovl_layer stat;            /* static guides (diagonals, spiral, centre), kept */
+    ovl_static_key stat_key;   /* what stat holds                           */
+    int stat_valid;
+    ovl_layer *target;         /* where strokes go: NULL = layer            */
 
     /* score history for the sparkline */
     double spark_t[OVL_SPARK_N];
@@ -145,6 +155,8 @@ struct ovl_window {
     uint64_t hist_rgb_total;
 
     coach_result last;         /* result of the last frame (redraws)       */
+    coach_result explain_res;  /* what the explain panel shows (4 Hz)      */
+    int explain_have;
     int have_result;
     int prev_ready;
     double ready_enter;        /* score at which ready is entered          */
@@ -199,6 +211,11 @@ void ovl_stroke_plain(ovl_window *w, float x0, float y0, float x1, float y1, flo
 /* Draws the strokes recorded so far (keeps drawing order with fills and text). */
 void ovl_strokes_flush(ovl_window *w);
 void ovl_layer_free(ovl_layer *l);
+/* Static strokes: 1 when the layer must be redrawn for key (strokes until
+ * ovl_static_end go into it), 0 when it still holds them, -1 on failure;
+ * ovl_static_end(w, that value) blends it. */
+int ovl_static_begin(ovl_window *w, const ovl_static_key *key);
+void ovl_static_end(ovl_window *w, int built);
 /* Outline of a rectangle with anti-aliased strokes. */
 void ovl_frame_rect(ovl_window *w, float x, float y, float rw, float rh, float width, SDL_Color c);
 

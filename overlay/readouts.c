@@ -617,6 +617,13 @@ static void explain(ovl_window *w, const coach_result *r, float top)
 {
     if (!w->explain || !r)
         return;
+    /* Numbers that change every frame cannot be read: the panel takes a
+     * new result four times a second (and re-renders its text only then). */
+    if (!w->explain_have || r->t < w->explain_res.t || r->t - w->explain_res.t >= 0.25) {
+        w->explain_res = *r;
+        w->explain_have = 1;
+    }
+    r = &w->explain_res;
     float fp = (float)w->font_px, m = fp * 0.7f;
     int n = r->nterms > COACH_MAX_TERMS ? COACH_MAX_TERMS : r->nterms;
     double wsum = 0;

@@ -341,6 +341,7 @@ void ovl_destroy(ovl_window *w)
     free(w->tone_buf);
     ovl_fonts_close(w);
     ovl_layer_free(&w->layer);
+    ovl_layer_free(&w->stat);
     if (w->frame_tex)
         SDL_DestroyTexture(w->frame_tex);
     if (w->ren)
