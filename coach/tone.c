@@ -669,6 +669,93 @@ VEC static void lap_sums_acc(const int16_t *restrict L, int w, int n_acc, int mo
     }
 }
 
+#if TONE_AVX2
+/* Laplacian row, its sums and the block sums in one AVX2 pass, 16 pixels a
+ * step (the interior; the two border pixels and the tail go through the
+ * portable code).  Same integers as lap_row + lap_sums_acc. */
+__attribute__((target("avx2"))) static void
+lap_avx2(const uint8_t *restrict u, const uint8_t *restrict c, const uint8_t *restrict d, int w,
+         int n_acc, int mode, int16_t *restrict L, int32_t *restrict al, int32_t *restrict aq,
+         tone_sums *s)
+{
+    const __m256i one = _mm256_set1_epi16(1);
+    __m256i sl = _mm256_setzero_si256(), ql = sl;
+    /* per lane at most 2 * 1020^2 per step and w / 16 <= 1024 steps: int32 */
+    int x = 1;
+    for (; x + 17 <= w; x += 16) {
+        __m256i vu = _mm256_cvtepu8_epi16(_mm_loadu_si128((const __m128i *)(u + x)));
+        __m256i vd = _mm256_cvtepu8_epi16(_mm_loadu_si128((const __m128i *)(d + x)));
+        __m256i vl = _mm256_cvtepu8_epi16(_mm_loadu_si128((const __m128i *)(c + x - 1)));
+        __m256i vr = _mm256_cvtepu8_epi16(_mm_loadu_si128((const __m128i *)(c + x + 1)));
+        __m256i vc = _mm256_cvtepu8_epi16(_mm_loadu_si128((const __m128i *)(c + x)));
+        __m256i lv = _mm256_sub_epi16(_mm256_add_epi16(_mm256_add_epi16(vu, vd),
+                                                       _mm256_add_epi16(vl, vr)),
+                                      _mm256_slli_epi16(vc, 2));
+        sl = _mm256_add_epi32(sl, _mm256_madd_epi16(lv, one));
+        ql = _mm256_add_epi32(ql, _mm256_madd_epi16(lv, lv));
+        if (x + 16 <= n_acc && mode) {
+            __m256i l0 = _mm256_cvtepi16_epi32(_mm256_castsi256_si128(lv));
+            __m256i l1 = _mm256_cvtepi16_epi32(_mm256_extracti128_si256(lv, 1));
+            __m256i q0 = _mm256_mullo_epi32(l0, l0), q1 = _mm256_mullo_epi32(l1, l1);
+            __m256i *pa = (__m256i *)(al + x), *pq = (__m256i *)(aq + x);
+            if (mode == 2) {
+                l0 = _mm256_add_epi32(l0, _mm256_loadu_si256(pa));
+                l1 = _mm256_add_epi32(l1, _mm256_loadu_si256(pa + 1));
+                q0 = _mm256_add_epi32(q0, _mm256_loadu_si256(pq));
+                q1 = _mm256_add_epi32(q1, _mm256_loadu_si256(pq + 1));
+            }
+            _mm256_storeu_si256(pa, l0);
+            _mm256_storeu_si256(pa + 1, l1);
+            _mm256_storeu_si256(pq, q0);
+            _mm256_storeu_si256(pq + 1, q1);
+        } else {
+            /* the block edge falls inside this step: leave L for the
+             * scalar block accumulation below */
+            _mm256_storeu_si256((__m256i *)(L + x), lv);
+            if (mode && x < n_acc) {
+                for (int i = x; i < x + 16 && i < n_acc; i++) {
+                    int32_t l = L[i];
+                    if (mode == 1) {
+                        al[i] = l;
+                        aq[i] = l * l;
+                    } else {
+                        al[i] += l;
+                        aq[i] += l * l;
+                    }
+                }
+            }
+        }
+    }
+    int32_t lane[8];
+    _mm256_storeu_si256((__m256i *)lane, sl);
+    for (int i = 0; i < 8; i++)
+        s->s_l += lane[i];
+    _mm256_storeu_si256((__m256i *)lane, ql);
+    for (int i = 0; i < 8; i++)
+        s->q_l += (uint32_t)lane[i];
+    /* pixel 0 and the rest from x on, portable */
+    int idx[2] = { 0, x };
+    for (int part = 0; part < 2; part++) {
+        int a = idx[part], b = part ? w : 1;
+        for (int i = a; i < b; i++) {
+            int left = i > 0 ? c[i - 1] : c[1], right = i < w - 1 ? c[i + 1] : c[w - 2];
+            int32_t l = u[i] + d[i] + left + right - 4 * c[i];
+            s->s_l += l;
+            s->q_l += (uint32_t)(l * l);
+            if (mode && i < n_acc) {
+                if (mode == 1) {
+                    al[i] = l;
+                    aq[i] = l * l;
+                } else {
+                    al[i] += l;
+                    aq[i] += l * l;
+                }
+            }
+        }
+    }
+}
+#endif
+
 /* ---- the pass ---------------------------------------------------------- */
 
 int coach_tone_check(const coach_frame *f)
@@ -771,9 +858,16 @@ int coach_tone_run(coach_tone *t, const coach_frame *f, coach_result *out, coach
         const uint8_t *c = ring[ly % 3];
         const uint8_t *u = ly > 0 ? ring[(ly - 1) % 3] : ring[(ly + 1) % 3];
         const uint8_t *d = ly < h - 1 ? ring[(ly + 1) % 3] : ring[(ly - 1) % 3];
-        lap_row(u, c, d, w, t->lap);
         int mode = ly < bh ? (ly % scale == 0 ? 1 : 2) : 0;
-        lap_sums_acc(t->lap, w, bw, mode, t->accl, t->accq, &s);
+#if TONE_AVX2
+        if (t->simd) {
+            lap_avx2(u, c, d, w, bw, mode, t->lap, t->accl, t->accq, &s);
+        } else
+#endif
+        {
+            lap_row(u, c, d, w, t->lap);
+            lap_sums_acc(t->lap, w, bw, mode, t->accl, t->accq, &s);
+        }
         if (ly < bh) {
             int yb = ly % scale;
             if (yb == scale - 1) {

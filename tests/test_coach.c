@@ -475,32 +475,37 @@ static void test_sharpness_laplacian_reflect101(void **state)
 static void test_tone_simd_matches_portable(void **state)
 {
     (void)state;
-    uint32_t seed = 4242;
-    const int w = 1203, h = 77; /* a width with tails after 16-pixel steps */
-    coach_frame f = a_xrgb(w, h, a_random, &seed);
-    coach_tone *t1 = coach_tone_create(w, h), *t2 = coach_tone_create(w, h);
-    assert_non_null(t1);
-    assert_non_null(t2);
-    coach_tone_set_simd(t1, 1);
-    coach_tone_set_simd(t2, 0);
-    static coach_result r1, r2;
-    coach_aimg i1, i2;
-    assert_int_equal(coach_tone_run(t1, &f, &r1, &i1), 0);
-    assert_int_equal(coach_tone_run(t2, &f, &r2, &i2), 0);
-    assert_memory_equal(r1.hist, r2.hist, sizeof(r1.hist));
-    assert_true(r1.exposure_ev == r2.exposure_ev);
-    assert_true(r1.colourfulness == r2.colourfulness);
-    assert_true(r1.sharpness == r2.sharpness);
-    size_t n = (size_t)i1.w * i1.h * sizeof(float);
-    assert_memory_equal(i1.luma, i2.luma, n);
-    assert_memory_equal(i1.r, i2.r, n);
-    assert_memory_equal(i1.g, i2.g, n);
-    assert_memory_equal(i1.b, i2.b, n);
-    assert_memory_equal(i1.lap, i2.lap, n);
-    assert_memory_equal(i1.lap_sq, i2.lap_sq, n);
-    coach_tone_destroy(t1);
-    coach_tone_destroy(t2);
-    free((void *)f.data);
+    /* widths with tails after 16-pixel steps, and sizes whose blocks end
+     * before the frame does (1283 = 4 * 320 + 3; 45 rows = 11 * 4 + 1) */
+    static const int sizes[][2] = { { 1203, 77 }, { 1283, 45 } };
+    for (size_t k = 0; k < 2; k++) {
+        uint32_t seed = 4242 + (uint32_t)k;
+        const int w = sizes[k][0], h = sizes[k][1];
+        coach_frame f = a_xrgb(w, h, a_random, &seed);
+        coach_tone *t1 = coach_tone_create(w, h), *t2 = coach_tone_create(w, h);
+        assert_non_null(t1);
+        assert_non_null(t2);
+        coach_tone_set_simd(t1, 1);
+        coach_tone_set_simd(t2, 0);
+        static coach_result r1, r2;
+        coach_aimg i1, i2;
+        assert_int_equal(coach_tone_run(t1, &f, &r1, &i1), 0);
+        assert_int_equal(coach_tone_run(t2, &f, &r2, &i2), 0);
+        assert_memory_equal(r1.hist, r2.hist, sizeof(r1.hist));
+        assert_true(r1.exposure_ev == r2.exposure_ev);
+        assert_true(r1.colourfulness == r2.colourfulness);
+        assert_true(r1.sharpness == r2.sharpness);
+        size_t n = (size_t)i1.w * i1.h * sizeof(float);
+        assert_memory_equal(i1.luma, i2.luma, n);
+        assert_memory_equal(i1.r, i2.r, n);
+        assert_memory_equal(i1.g, i2.g, n);
+        assert_memory_equal(i1.b, i2.b, n);
+        assert_memory_equal(i1.lap, i2.lap, n);
+        assert_memory_equal(i1.lap_sq, i2.lap_sq, n);
+        coach_tone_destroy(t1);
+        coach_tone_destroy(t2);
+        free((void *)f.data);
+    }
 }
 
 /* ---- score ---- */
