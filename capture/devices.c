@@ -34,8 +34,12 @@ int cap_dev_match(const cap_dev_id *want, const cap_dev_id *have)
         return !strcmp(want->serial, have->serial);
     if (want->id_path[0] && have->id_path[0])
         return !strcmp(want->id_path, have->id_path);
+    /* One parent can carry several cameras with their own bus_info (vivid
+     * instances share one platform device): when both sides know it, it
+     * must agree too. */
     if (want->parent[0] && have->parent[0])
-        return !strcmp(want->parent, have->parent);
+        return !strcmp(want->parent, have->parent) &&
+               (!want->bus[0] || !have->bus[0] || !strcmp(want->bus, have->bus));
     if (want->bus[0] && have->bus[0] && want->card[0] && have->card[0])
         return !strcmp(want->bus, have->bus) && !strcmp(want->card, have->card);
     return 0;
