@@ -1,5 +1,6 @@
 /* The window: creation (normal or presenter), frame upload, the draw order,
  * keys, the help overlay, the ready tone and the screenshot readback. */
+#include <dirent.h>
 #include <errno.h>
 #include <math.h>
 #include <stdio.h>
@@ -203,10 +204,26 @@ static SDL_Renderer *software_renderer(SDL_Window *win)
     return SDL_CreateRenderer(win, -1, SDL_RENDERER_SOFTWARE);
 }
 
+/* Any DRM render node (/dev/dri/renderD128...)?  Without one there is no
+ * GPU to draw with, and loading a GL driver only to find that out costs
+ * start-up time, memory and two idle rasteriser threads. */
+static int have_render_node(void)
+{
+    DIR *d = opendir("/dev/dri");
+    if (!d)
+        return 0;
+    int found = 0;
+    struct dirent *e;
+    while (!found && (e = readdir(d)))
+        found = !strncmp(e->d_name, "renderD", 7);
+    closedir(d);
+    return found;
+}
+
 static SDL_Renderer *make_renderer(SDL_Window *win)
 {
     const char *want = SDL_GetHint(SDL_HINT_RENDER_DRIVER);
-    if (want && !strcmp(want, "software"))
+    if ((want && !strcmp(want, "software")) || (!want && !have_render_node()))
         return software_renderer(win);
     SDL_Renderer *r = SDL_CreateRenderer(win, -1, 0);
     SDL_RendererInfo info;
