@@ -271,7 +271,7 @@ static void hint_text(int id, const coach_config *cfg, const coach_result *r, co
     switch (id) {
     case T_EXPOSURE: {
         double d = r->exposure_ev - ev_target[cfg->profile < COACH_PROFILE_COUNT ? cfg->profile : 0];
-        coach_sb_str(b, d > 0 ? "Darken by about " : "Brighten by about ");
+        coach_sb_str(b, d > 0 ? "Lower the exposure by about " : "Raise the exposure by about ");
         stops(b, fabs(d));
         break;
     }
