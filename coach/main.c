@@ -74,6 +74,11 @@ static void usage(FILE *f)
         "  --display N        display for presenter mode\n"
         "  --mirror           start mirrored\n"
         "  --tone             short tone when the frame becomes ready\n"
+        "  --jpeg             snapshots as JPEG (default PNG)\n"
+        "  --show LIST        what the window shows at start, e.g. thirds,horizon,histogram\n"
+        "                     (thirds phi diagonals spiral[:0-3] centre horizon crop:1:1|4:5|3:2|16:9\n"
+        "                      histogram histogram-rgb zebras peaking subject meter hints label\n"
+        "                      explain help stats, or none)\n"
         "  --help, --version\n");
 }
 
@@ -106,7 +111,8 @@ static int parse_long(const char *s, long lo, long hi, long *out)
 enum {
     OPT_SOURCE = 256, OPT_DEVICE, OPT_LIST, OPT_SIZE, OPT_FPS, OPT_SEED, OPT_HEADLESS,
     OPT_FRAMES, OPT_PROFILE, OPT_GRID, OPT_OUT, OPT_AUTO, OPT_ON_READY, OPT_PRESENTER,
-    OPT_DISPLAY, OPT_MIRROR, OPT_TONE, OPT_STATS, OPT_HELP, OPT_VERSION
+    OPT_DISPLAY, OPT_MIRROR, OPT_TONE, OPT_STATS, OPT_HELP, OPT_VERSION,
+    OPT_JPEG, OPT_SHOW, OPT_SCREENSHOT /* h5: window and snapshots */
 };
 
 static const struct option long_opts[] = {
@@ -128,6 +134,9 @@ static const struct option long_opts[] = {
     {"mirror", no_argument, NULL, OPT_MIRROR},
     {"tone", no_argument, NULL, OPT_TONE},
     {"stats", no_argument, NULL, OPT_STATS},
+    {"jpeg", no_argument, NULL, OPT_JPEG},
+    {"show", required_argument, NULL, OPT_SHOW},
+    {"screenshot", required_argument, NULL, OPT_SCREENSHOT}, /* hidden: tests/check_screens.sh */
     {"help", no_argument, NULL, OPT_HELP},
     {"version", no_argument, NULL, OPT_VERSION},
     {NULL, 0, NULL, 0},
@@ -219,6 +228,9 @@ static int parse_opts(int argc, char **argv, app_opts *o)
         case OPT_MIRROR: o->mirror = 1; break;
         case OPT_TONE: o->tone = 1; break;
         case OPT_STATS: o->stats = 1; break;
+        case OPT_JPEG: o->snap_jpeg = 1; break;
+        case OPT_SHOW: o->show = optarg; break;
+        case OPT_SCREENSHOT: o->screenshot = optarg; break;
         case OPT_HELP: usage(stdout); return 1;
         case OPT_VERSION: printf("vfcoach %s\n", VFCOACH_VERSION); return 1;
         case ':':
@@ -349,6 +361,7 @@ typedef struct app_run {
     app_wake wake;
     long analysed;
     char srcname[192];
+    app_shots shots;     /* h5: snapshots, --auto, --on-ready */
 } app_run;
 
 static int analyse_newest(app_run *r, cap_frame *f)
@@ -405,9 +418,13 @@ static int run_terminal(app_run *r)
                 break;
             }
         }
+        if (app_shots_poll(&r->shots)) /* h5: on-ready exit status */
+            fprintf(stderr, "vfcoach: %s\n", r->shots.msg);
         cap_frame f;
         if (!analyse_newest(r, &f))
             continue;
+        if (app_shots_frame(&r->shots, &f.view, &r->res, r->o->profile)) /* h5 */
+            fprintf(stderr, "vfcoach: %s\n", r->shots.msg);
         if (r->o->headless) {
             cap_stats st;
             cap_mailbox_stats(r->mb, &st);
@@ -440,6 +457,8 @@ static int run_window(app_run *r)
     ovl_opts oo = {
         .width = 1280, .height = 720, .presenter = r->o->presenter, .display = r->o->display,
         .mirror = r->o->mirror, .tone = r->o->tone, .font_path = NULL, .title = "vfcoach",
+        /* h5: */ .stats = r->o->stats, .grid = r->o->grid, .show = r->o->show,
+        .screenshot = r->o->screenshot, .screenshot_after = r->o->frames,
     };
     ovl_window *win = ovl_create(&oo, err, sizeof err);
     if (!win) {
@@ -486,7 +505,8 @@ static int run_window(app_run *r)
                     st.profile = r->o->profile;
                     /* TODO(lead): apply the profile to the analyzer */
                 }
-                /* OVL_ACT_SNAPSHOT: the snapshot work hooks in here. */
+                else if (a == OVL_ACT_SNAPSHOT)
+                    r->shots.pending = 1; /* h5: saved with the next frame */
             }
         } while (SDL_PollEvent(&e));
 
@@ -497,9 +517,17 @@ static int run_window(app_run *r)
             st.source_lost = (lost == 1 || lost == 3);
             st.message = st.source_lost ? message : NULL;
         }
+        if (app_shots_poll(&r->shots)) { /* h5: on-ready exit status */
+            fprintf(stderr, "vfcoach: %s\n", r->shots.msg);
+            ovl_notice(win, r->shots.msg);
+        }
         cap_frame f;
         if (frame_ready && analyse_newest(r, &f)) {
             have_result = 1;
+            if (app_shots_frame(&r->shots, &f.view, &r->res, r->o->profile)) { /* h5 */
+                fprintf(stderr, "vfcoach: %s\n", r->shots.msg);
+                ovl_notice(win, r->shots.msg);
+            }
             cap_stats cs;
             cap_mailbox_stats(r->mb, &cs);
             st.dropped = cs.dropped;
@@ -577,6 +605,13 @@ static int run_live(app_opts *o)
         coach_destroy(r.an);
         return 1;
     }
+    if (app_shots_init(&r.shots, o, r.srcname, err, sizeof err)) { /* h5 */
+        fprintf(stderr, "vfcoach: --on-ready: %s\n", err);
+        cap_source_destroy(r.src);
+        cap_mailbox_destroy(r.mb);
+        coach_destroy(r.an);
+        return 2;
+    }
 
     struct sigaction sa;
     memset(&sa, 0, sizeof sa);
@@ -592,6 +627,7 @@ static int run_live(app_opts *o)
         close(r.wake.efd);
     cap_mailbox_destroy(r.mb);
     coach_destroy(r.an);
+    app_shots_fini(&r.shots); /* h5 */
     return rc;
 }
 
