@@ -154,15 +154,18 @@ static void a_rgb_to_ycc(const uint8_t rgb[3], int bt709, int full, uint8_t ycc[
     double R = rgb[0] / 255.0, G = rgb[1] / 255.0, B = rgb[2] / 255.0;
     double Y = kr * R + (1 - kr - kb) * G + kb * B;
     double cb = (B - Y) / (2 * (1 - kb)), cr = (R - Y) / (2 * (1 - kr));
-    if (full) {
-        ycc[0] = (uint8_t)lround(255 * Y);
-        ycc[1] = (uint8_t)lround(128 + 255 * cb);
-        ycc[2] = (uint8_t)lround(128 + 255 * cr);
+    double v[3];
+    if (full) { /* full range: the extremes of Cb, Cr clip at 255 */
+        v[0] = 255 * Y;
+        v[1] = 128 + 255 * cb;
+        v[2] = 128 + 255 * cr;
     } else {
-        ycc[0] = (uint8_t)lround(16 + 219 * Y);
-        ycc[1] = (uint8_t)lround(128 + 224 * cb);
-        ycc[2] = (uint8_t)lround(128 + 224 * cr);
+        v[0] = 16 + 219 * Y;
+        v[1] = 128 + 224 * cb;
+        v[2] = 128 + 224 * cr;
     }
+    for (int i = 0; i < 3; i++)
+        ycc[i] = (uint8_t)lround(v[i] < 0 ? 0 : v[i] > 255 ? 255 : v[i]);
 }
 
 /* A smooth colour field, constant over 2x2 pixel cells so 4:2:0 chroma
@@ -242,6 +245,46 @@ static void test_luma_yuv_matches_rgb(void **state)
     free(yuyv);
     free(nv12);
     free((void *)rgbf.data);
+}
+
+/* The Y'CbCr matrices themselves: primaries encoded with the BT.601-7
+ * (Kr 0.299, Kb 0.114) and BT.709-6 (Kr 0.2126, Kb 0.0722) equations, in
+ * both ranges, decode back to the same primaries, and the luma is Y'
+ * (BT.601-7 item 2.5.1: Y' of red is 0.299, of green 0.587, of blue 0.114). */
+static void test_luma_bt601_yuv_primaries(void **state)
+{
+    (void)state;
+    static const uint8_t prim[4][3] = { { 255, 0, 0 }, { 0, 255, 0 }, { 0, 0, 255 }, { 200, 120, 40 } };
+    static const double kr[2] = { 0.299, 0.2126 }, kb[2] = { 0.114, 0.0722 };
+    const int w = 32, h = 16;
+    uint8_t *yuyv = malloc((size_t)w * h * 2);
+    assert_non_null(yuyv);
+    coach_tone *t = coach_tone_create(w, h);
+    for (int m = 0; m < 2; m++)
+        for (int full = 0; full < 2; full++)
+            for (int p = 0; p < 4; p++) {
+                uint8_t ycc[3];
+                a_rgb_to_ycc(prim[p], m, full, ycc);
+                for (int i = 0; i < w * h / 2; i++) {
+                    yuyv[4 * i] = yuyv[4 * i + 2] = ycc[0];
+                    yuyv[4 * i + 1] = ycc[1];
+                    yuyv[4 * i + 3] = ycc[2];
+                }
+                coach_frame f = { .data = yuyv, .w = w, .h = h, .stride = w * 2,
+                                  .format = COACH_FMT_YUYV,
+                                  .matrix = m ? COACH_MATRIX_BT709 : COACH_MATRIX_BT601,
+                                  .range = full ? COACH_RANGE_FULL : COACH_RANGE_LIMITED };
+                coach_result r;
+                coach_aimg img;
+                assert_int_equal(coach_tone_run(t, &f, &r, &img), 0);
+                assert_float_equal(img.r[0], prim[p][0], 1.5);
+                assert_float_equal(img.g[0], prim[p][1], 1.5);
+                assert_float_equal(img.b[0], prim[p][2], 1.5);
+                double y = kr[m] * prim[p][0] + (1 - kr[m] - kb[m]) * prim[p][1] + kb[m] * prim[p][2];
+                assert_float_equal(img.luma[0], y, 1.01);
+            }
+    coach_tone_destroy(t);
+    free(yuyv);
 }
 
 /* Uniform grey frames at whole stops around middle grey: the grey code is
@@ -1409,6 +1452,7 @@ int main(void)
         cmocka_unit_test(test_grey18_code118_lstar),
         cmocka_unit_test(test_luma_bt709_weights),
         cmocka_unit_test(test_luma_yuv_matches_rgb),
+        cmocka_unit_test(test_luma_bt601_yuv_primaries),
         cmocka_unit_test(test_exposure_whole_stops),
         cmocka_unit_test(test_exposure_stripes_no_alias),
         cmocka_unit_test(test_exposure_demo_one_stop),
