@@ -441,39 +441,43 @@ static yuv_coef yuv_coefs(coach_matrix m, coach_range rg)
 static inline uint8_t clamp8_q14(int v)
 {
     v = (v + 8192) >> 14;
-    return (uint8_t)(v < 0 ? 0 : v > 255 ? 255 : v);
+    v = v < 0 ? 0 : v;
+    return (uint8_t)(v > 255 ? 255 : v);
 }
 
-/* Two pixels sharing one chroma pair. */
-static inline void yuv_pair(const yuv_coef *c, int Y0, int Y1, int U, int V, uint8_t *r,
-                            uint8_t *g, uint8_t *b, uint8_t *y)
+/* Two pixels sharing one chroma pair, written so the pair loops below
+ * vectorise (coefficients in locals, branch-free clamps). */
+#define YUV_PAIR(Y0, Y1, U, V, i)                                               \
+    do {                                                                      \
+        int cb_ = (int)(U) - 128, cr_ = (int)(V) - 128;                       \
+        int dr_ = crr * cr_, db_ = cbb * cb_, dg_ = -crg * cr_ - cbg * cb_;   \
+        int y0_ = ((int)(Y0) - yo) * ky, y1_ = ((int)(Y1) - yo) * ky;         \
+        y[2 * (i)] = clamp8_q14(y0_);                                         \
+        y[2 * (i) + 1] = clamp8_q14(y1_);                                     \
+        r[2 * (i)] = clamp8_q14(y0_ + dr_);                                   \
+        r[2 * (i) + 1] = clamp8_q14(y1_ + dr_);                               \
+        g[2 * (i)] = clamp8_q14(y0_ + dg_);                                   \
+        g[2 * (i) + 1] = clamp8_q14(y1_ + dg_);                               \
+        b[2 * (i)] = clamp8_q14(y0_ + db_);                                   \
+        b[2 * (i) + 1] = clamp8_q14(y1_ + db_);                               \
+    } while (0)
+
+VEC static void unpack_yuyv(const uint8_t *restrict p, int w, const yuv_coef *c,
+                            uint8_t *restrict r, uint8_t *restrict g, uint8_t *restrict b,
+                            uint8_t *restrict y)
 {
-    int cb = U - 128, cr = V - 128;
-    int dr = c->cr_r * cr, db = c->cb_b * cb, dg = -c->cr_g * cr - c->cb_g * cb;
-    int y0 = (Y0 - c->y0) * c->ky, y1 = (Y1 - c->y0) * c->ky;
-    y[0] = clamp8_q14(y0);
-    y[1] = clamp8_q14(y1);
-    r[0] = clamp8_q14(y0 + dr);
-    r[1] = clamp8_q14(y1 + dr);
-    g[0] = clamp8_q14(y0 + dg);
-    g[1] = clamp8_q14(y1 + dg);
-    b[0] = clamp8_q14(y0 + db);
-    b[1] = clamp8_q14(y1 + db);
+    const int ky = c->ky, yo = c->y0, crr = c->cr_r, cbb = c->cb_b, crg = c->cr_g, cbg = c->cb_g;
+    for (int i = 0; i < w / 2; i++)
+        YUV_PAIR(p[4 * i], p[4 * i + 2], p[4 * i + 1], p[4 * i + 3], i);
 }
 
-static void unpack_yuyv(const uint8_t *restrict p, int w, const yuv_coef *c, uint8_t *restrict r,
-                        uint8_t *restrict g, uint8_t *restrict b, uint8_t *restrict y)
+VEC static void unpack_nv12(const uint8_t *restrict py, const uint8_t *restrict pc, int w,
+                            const yuv_coef *c, uint8_t *restrict r, uint8_t *restrict g,
+                            uint8_t *restrict b, uint8_t *restrict y)
 {
-    for (int x = 0; x + 1 < w; x += 2, p += 4)
-        yuv_pair(c, p[0], p[2], p[1], p[3], r + x, g + x, b + x, y + x);
-}
-
-static void unpack_nv12(const uint8_t *restrict py, const uint8_t *restrict pc, int w,
-                        const yuv_coef *c, uint8_t *restrict r, uint8_t *restrict g,
-                        uint8_t *restrict b, uint8_t *restrict y)
-{
-    for (int x = 0; x + 1 < w; x += 2)
-        yuv_pair(c, py[x], py[x + 1], pc[x], pc[x + 1], r + x, g + x, b + x, y + x);
+    const int ky = c->ky, yo = c->y0, crr = c->cr_r, cbb = c->cb_b, crg = c->cr_g, cbg = c->cb_g;
+    for (int i = 0; i < w / 2; i++)
+        YUV_PAIR(py[2 * i], py[2 * i + 1], pc[2 * i], pc[2 * i + 1], i);
 }
 
 /* ---- per-row statistics ------------------------------------------------ */
