@@ -761,7 +761,7 @@ void ovl_draw_hud(ovl_window *w, const coach_result *r, const ovl_status *st)
     explain(w, r, top);
     histogram(w, r);
     hints(w, r);
-    if (w->presenter && w->present_guide >= 0) {
+    if (w->presenter && w->present_guide >= 0 && !w->help) {
         /* the guide's name, top right: clear of the meter at top left */
         char b[64];
         const char *t = guide_title(w, b, sizeof b);

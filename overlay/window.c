@@ -23,12 +23,12 @@ static const ovl_key key_help[] = {
     {"1", "rule of thirds"},
     {"2", "phi grid"},
     {"3", "diagonals"},
-    {"4", "golden spiral (again: turn it, 5th press: off)"},
+    {"4", "golden spiral; again: turn it"},
     {"5", "centre mark"},
     {"6", "level line (artificial horizon)"},
-    {"7", "crop mask 1:1 → 4:5 → 3:2 → 16:9 → off"},
+    {"7", "crop 1:1 → 4:5 → 3:2 → 16:9 → off"},
     {"0", "all guides off"},
-    {"Tab", "next guide (presenter mode: one at a time)"},
+    {"Tab", "next guide, shown alone"},
     {"L", "histogram: luma → RGB → off"},
     {"Z", "zebras on clipped highlights"},
     {"F / K", "focus peaking / its colour"},
@@ -458,29 +458,46 @@ static void help(ovl_window *w)
         return;
     float fp = (float)w->font_px;
     int n = (int)(sizeof key_help / sizeof key_help[0]);
-    int lh = TTF_FontLineSkip(w->font);
-    int kw = 0, dw = 0;
-    for (int i = 0; i < n; i++) {
-        int a, b;
-        ovl_text_size(w, w->font, key_help[i].keys, &a, &b);
-        if (a > kw)
-            kw = a;
-        ovl_text_size(w, w->font, key_help[i].what, &a, &b);
-        if (a > dw)
-            dw = a;
+    /* the first layout that fits: one column, two, then smaller type */
+    TTF_Font *font = w->font;
+    int lh = 0, cols = 1, rows = n, kw = 0, dw = 0;
+    float colw = 0, pw = 0, ph = 0;
+    for (int t = 0; t < 4; t++) {
+        font = t < 2 ? w->font : w->font_small;
+        cols = 1 + (t & 1);
+        rows = (n + cols - 1) / cols;
+        lh = TTF_FontLineSkip(font);
+        kw = dw = 0;
+        for (int i = 0; i < n; i++) {
+            int a, b;
+            ovl_text_size(w, font, key_help[i].keys, &a, &b);
+            if (a > kw)
+                kw = a;
+            ovl_text_size(w, font, key_help[i].what, &a, &b);
+            if (a > dw)
+                dw = a;
+        }
+        colw = (float)(kw + dw) + fp * 2.0f;
+        pw = colw * (float)cols + fp;
+        ph = (float)(lh * (rows + 2)) + fp;
+        if (pw <= (float)w->ww && ph <= (float)w->wh)
+            break;
     }
-    float pw = (float)(kw + dw) + fp * 3.0f, ph = (float)(lh * (n + 2)) + fp;
     float x = ((float)w->ww - pw) / 2, y = ((float)w->wh - ph) / 2;
     if (y < 0)
         y = 0;
-    ovl_fill(w, 0, 0, (float)w->ww, (float)w->wh, (SDL_Color){0, 0, 0, 90});
+    if (x < 0)
+        x = 0;
+    ovl_fill(w, 0, 0, (float)w->ww, (float)w->wh, (SDL_Color){0, 0, 0, 110});
     ovl_panel_rect(w, x, y, pw, ph);
     ovl_panel_rect(w, x, y, pw, ph); /* twice: the help must read over anything */
-    ovl_text(w, w->font, "Keys", x + fp, y + fp * 0.5f, 0, ovl_accent);
+    ovl_text(w, font, "Keys", x + fp, y + fp * 0.5f, 0, ovl_accent);
     for (int i = 0; i < n; i++) {
-        float yy = y + fp * 0.5f + (float)(lh * (i + 1)) + fp * 0.4f;
-        ovl_text(w, w->font, key_help[i].keys, x + fp + (float)kw, yy, 2, ovl_ink);
-        ovl_text(w, w->font, key_help[i].what, x + fp * 2.0f + (float)kw, yy, 0, ovl_dimtext);
+        int c = i / rows, k = i % rows;
+        float cx = x + (float)c * colw;
+        float yy = y + fp * 0.5f + (float)(lh * (k + 1)) + fp * 0.4f;
+        ovl_text(w, font, key_help[i].keys, cx + fp + (float)kw, yy, 2, ovl_ink);
+        ovl_text(w, font, key_help[i].what, cx + fp * 2.0f + (float)kw, yy, 0, ovl_dimtext);
     }
 }
 
