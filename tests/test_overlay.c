@@ -505,6 +505,83 @@ static void test_text_mirror_words(void **state)
     assert_string_equal(out, "Rotate 2.1° clockwise");
 }
 
+static ovl_action key(ovl_window *w, SDL_Keycode k)
+{
+    SDL_Event e;
+    memset(&e, 0, sizeof e);
+    e.type = SDL_KEYDOWN;
+    e.key.keysym.sym = k;
+    return ovl_handle_event(w, &e);
+}
+
+/* The key map (our own, listed in the help overlay): the spiral key turns
+ * the spiral through its four orientations then hides it, the crop key
+ * walks 1:1, 4:5, 3:2, 16:9, off; Esc closes the help before it quits;
+ * presenter mode keeps one guide at a time. */
+static void test_keys_map(void **state)
+{
+    (void)state;
+    ovl_window *w = twin(640, 360, "none");
+    for (int i = 0; i < 4; i++) {
+        assert_int_equal(key(w, SDLK_4), OVL_ACT_NONE);
+        assert_true(w->guide[OVL_G_SPIRAL]);
+        assert_int_equal(w->spiral_orient, i);
+    }
+    key(w, SDLK_4);
+    assert_false(w->guide[OVL_G_SPIRAL]);
+    for (int i = 1; i < OVL_CROP_COUNT; i++) {
+        key(w, SDLK_7);
+        assert_int_equal(w->crop, i);
+        assert_true(w->guide[OVL_G_CROP]);
+    }
+    key(w, SDLK_7);
+    assert_int_equal(w->crop, 0);
+    assert_false(w->guide[OVL_G_CROP]);
+    key(w, SDLK_1);
+    key(w, SDLK_2);
+    assert_true(w->guide[OVL_G_THIRDS] && w->guide[OVL_G_PHI]);
+    key(w, SDLK_0);
+    assert_false(w->guide[OVL_G_THIRDS] || w->guide[OVL_G_PHI]);
+    assert_int_equal(key(w, SDLK_s), OVL_ACT_SNAPSHOT);
+    assert_int_equal(key(w, SDLK_SPACE), OVL_ACT_SNAPSHOT);
+    assert_int_equal(key(w, SDLK_p), OVL_ACT_NEXT_PROFILE);
+    key(w, SDLK_l);
+    assert_int_equal(w->hist_mode, 1);
+    key(w, SDLK_l);
+    assert_int_equal(w->hist_mode, 2);
+    key(w, SDLK_l);
+    assert_int_equal(w->hist_mode, 0);
+    key(w, SDLK_m);
+    assert_true(ovl_mirrored(w));
+    key(w, SDLK_h);
+    assert_true(w->help);
+    assert_int_equal(key(w, SDLK_ESCAPE), OVL_ACT_NONE);
+    assert_false(w->help);
+    assert_int_equal(key(w, SDLK_ESCAPE), OVL_ACT_QUIT);
+    assert_int_equal(key(w, SDLK_q), OVL_ACT_QUIT);
+    ovl_destroy(w);
+
+    char err[256];
+    ovl_opts o = {.width = 640, .height = 360, .hidden = 1, .presenter = 1, .show = "thirds,phi,meter"};
+    w = ovl_create(&o, err, sizeof err);
+    if (!w)
+        fail_msg("%s", err);
+    /* presenter: the first guide asked for, alone, and its name shown */
+    assert_true(w->guide[OVL_G_THIRDS]);
+    assert_false(w->guide[OVL_G_PHI]);
+    assert_int_equal(w->present_guide, OVL_G_THIRDS);
+    key(w, SDLK_3);
+    assert_true(w->guide[OVL_G_DIAGONALS]);
+    assert_false(w->guide[OVL_G_THIRDS]);
+    key(w, SDLK_TAB);
+    int on = 0;
+    for (int i = 0; i < OVL_G_COUNT; i++)
+        on += w->guide[i] != 0;
+    assert_int_equal(on, 1);
+    assert_true(w->guide[OVL_G_SPIRAL]);
+    ovl_destroy(w);
+}
+
 /* Mirrored, the level line leans the other way (the picture is flipped
  * left-right), and a lost source dims the last frame. */
 static void test_guides_mirror_and_lost(void **state)
@@ -1036,6 +1113,7 @@ int main(void)
         cmocka_unit_test(test_readouts_rgb_histogram_yuv),
         cmocka_unit_test(test_guides_mirror_and_lost),
         cmocka_unit_test(test_text_mirror_words),
+        cmocka_unit_test(test_keys_map),
         cmocka_unit_test(test_text_no_font_error),
         cmocka_unit_test(test_snapshot_roundtrip),
         cmocka_unit_test(test_snapshot_failed_write_leaves_nothing),
