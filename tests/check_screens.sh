@@ -15,6 +15,9 @@ PY=${PYTHON:-/usr/bin/python3}
 here=$(cd "$(dirname "$0")" && pwd)
 out="$here/../build/screens"
 mkdir -p "$out" || exit 1
+# one run at a time writes the folder (parallel `make check` runs wait)
+exec 9>"$out/.lock"
+flock 9
 rm -f "$out"/*.png
 
 if ! command -v Xvfb >/dev/null; then
