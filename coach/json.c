@@ -228,7 +228,7 @@ int coach_json(const coach_result *r, const char *file, char *buf, size_t n)
         }
     coach_sb_chr(&b, ']');
     kv_opt(&b, "lead_room", r->has_lead_room, r->lead_room, 3);
-    kv_num(&b, "motion_px_s", r->motion_px_s, 1);
+    kv_opt(&b, "motion_px_s", r->has_motion, r->motion_px_s, 1);
     kv_opt(&b, "subject_focus", r->has_subject_focus, r->subject_focus, 3);
 
     coach_sb_chr(&b, ',');

@@ -168,7 +168,7 @@ void coach_score_terms(const coach_config *cfg, int have_prev, coach_result *r)
         v[T_LEAD_ROOM] = clamp01((r->lead_room - LEAD_LOW) / (LEAD_HIGH - LEAD_LOW));
         on[T_LEAD_ROOM] = 1;
     }
-    if (have_prev && isfinite(r->motion_px_s) && r->width > 0) {
+    if (have_prev && r->has_motion && isfinite(r->motion_px_s) && r->width > 0) {
         double m = r->motion_px_s / r->width / STEADY_HALF;
         v[T_STEADINESS] = 1 / (1 + m * m);
         on[T_STEADINESS] = 1;
