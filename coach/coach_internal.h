@@ -146,9 +146,12 @@ void coach_saliency_destroy(coach_saliency *s);
 /* Computes the map (normalised to max 1; all 0 for a blank image) and the
  * subject, balance and intrusions from it; with the colour planes (r, g, b
  * may be NULL) a subject distinct in colour from the whole border is
- * located on its colour contrast instead.  Returns the map. */
+ * located on its colour contrast instead.  hline (NULL: none) is the
+ * horizon in map cells, y = hline[0] + hline[1] * x: pieces of it where it
+ * meets the sides are not intrusions.  Returns the map. */
 const float *coach_saliency_run(coach_saliency *s, const float *luma, const float *r,
-                                const float *g, const float *b, int w, int h, coach_salient *out);
+                                const float *g, const float *b, int w, int h,
+                                const double *hline, coach_salient *out);
 
 /* Global frame-to-frame shift by phase correlation (motion.c). */
 typedef struct coach_motion coach_motion;

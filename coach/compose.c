@@ -258,7 +258,15 @@ void coach_compose_run(coach_compose *c, const coach_aimg *img, int full_w, int 
      * w*s x h*s full-resolution pixels (the remainder is cut): map its
      * fractions back onto the whole frame. */
     coach_salient sa;
-    c->last_map = coach_saliency_run(c->sal, img->luma, img->r, img->g, img->b, img->w, img->h, &sa);
+    double hl[2];
+    if (le->has_horizon) {
+        /* y = a + b x in analysis pixels to map cells: x = (xc + 0.5) w / N - 0.5 */
+        const double kx = (double)img->w / COACH_SAL_N, ky = (double)COACH_SAL_N / img->h;
+        hl[1] = le->horizon_b * kx * ky;
+        hl[0] = (le->horizon_a + le->horizon_b * (0.5 * kx - 0.5) + 0.5) * ky - 0.5;
+    }
+    c->last_map = coach_saliency_run(c->sal, img->luma, img->r, img->g, img->b, img->w, img->h,
+                                     le->has_horizon ? hl : NULL, &sa);
     const double fx = (double)img->w * s / full_w, fy = (double)img->h * s / full_h;
     out->balance_lr = sa.balance_lr;
     out->balance_tb = sa.balance_tb;

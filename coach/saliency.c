@@ -23,6 +23,8 @@
  * to be taken from the boundary contrast. */
 #define MIN_BOUNDARY_CONTRAST 40.0f
 #define MAX_CAND 48
+/* A region this long (cells, three quarters of the map) spans the frame. */
+#define SPAN_CELLS (3 * N / 4)
 
 typedef struct region {
     double mass, sx, sy;
@@ -38,6 +40,7 @@ struct coach_saliency {
     float small[NN];       /* luma at N x N                              */
     float cx[2 * NN];      /* complex work                               */
     float scratch[2 * NN];
+    float cos2[N];                /* 2 cos(2 pi q / N)                   */
     float pad[(N + 4) * (N + 4)];
     region *regions;       /* the MAX_CAND heaviest regions             */
     float la[NN], lb[NN];  /* log amplitude, its local mean              */
@@ -59,6 +62,8 @@ coach_saliency *coach_saliency_create(int max_w, int max_h)
     s->max_h = max_h;
     s->rows = malloc((size_t)max_w * N * sizeof(float));
     s->regions = malloc(MAX_CAND * sizeof(region));
+    for (int q = 0; q < N; q++)
+        s->cos2[q] = (float)(2.0 * cos(2.0 * M_PI * q / N));
     if (!s->rows || !s->regions || coach_fft_plan_init(&s->plan, N) != 0) {
         coach_saliency_destroy(s);
         return NULL;
@@ -189,6 +194,54 @@ static void blur5(float *m, float *pad)
     }
 }
 
+/* The spectrum of the periodic component of s->small into s->cx.  The DFT
+ * treats the image as a tile of a periodic pattern; where its opposite
+ * borders differ (sky above, sea below, a tilted horizon meeting the sides)
+ * the seams add a cross of energy along the axes that the spectral residual
+ * would show as salient stripes at the borders, taken for intrusions.  The
+ * periodic-plus-smooth decomposition (Moisan, J. Math. Imaging Vis. 2011)
+ * removes that: with v the border jumps (v = 0 inside), the smooth part
+ * has spectrum S = V / (2 cos(2 pi q / N) + 2 cos(2 pi r / N) - 4), S(0,0) = 0,
+ * and the periodic part is U - S.  U and V come from one complex transform
+ * of small + i v (both are real, so Z(k) and conj Z(-k) separate them). */
+static void periodic_spectrum(coach_saliency *s)
+{
+    const float *u = s->small;
+    for (int i = 0; i < NN; i++) {
+        s->cx[2 * i] = u[i];
+        s->cx[2 * i + 1] = 0;
+    }
+    for (int x = 0; x < N; x++) {
+        float d = u[(N - 1) * N + x] - u[x];
+        s->cx[2 * x + 1] += d;
+        s->cx[2 * ((N - 1) * N + x) + 1] -= d;
+    }
+    for (int y = 0; y < N; y++) {
+        float d = u[y * N + N - 1] - u[y * N];
+        s->cx[2 * (y * N) + 1] += d;
+        s->cx[2 * (y * N + N - 1) + 1] -= d;
+    }
+    coach_fft2d(&s->plan, &s->plan, s->cx, s->scratch, 0);
+    float *out = s->scratch;
+    for (int q = 0; q < N; q++)
+        for (int r = 0; r < N; r++) {
+            int k = q * N + r, km = ((N - q) % N) * N + (N - r) % N;
+            float zr = s->cx[2 * k], zi = s->cx[2 * k + 1];
+            float mr = s->cx[2 * km], mi = s->cx[2 * km + 1];
+            float ur = 0.5f * (zr + mr), ui = 0.5f * (zi - mi);
+            float vr = 0.5f * (zi + mi), vi = -0.5f * (zr - mr);
+            float den = s->cos2[q] + s->cos2[r] - 4.0f;
+            if (k == 0) {
+                out[0] = ur;
+                out[1] = ui;
+            } else {
+                out[2 * k] = ur - vr / den;
+                out[2 * k + 1] = ui - vi / den;
+            }
+        }
+    memcpy(s->cx, out, sizeof s->cx);
+}
+
 static int spectral_residual(coach_saliency *s, const float *luma, int w, int h)
 {
     resample_plane(s, luma, w, h, s->small);
@@ -203,11 +256,7 @@ static int spectral_residual(coach_saliency *s, const float *luma, int w, int h)
      * has no salient region. */
     if (var < 1.0)
         return 0;
-    for (int i = 0; i < NN; i++) {
-        s->cx[2 * i] = s->small[i];
-        s->cx[2 * i + 1] = 0;
-    }
-    coach_fft2d(&s->plan, &s->plan, s->cx, s->scratch, 0);
+    periodic_spectrum(s);
     for (int i = 0; i < NN; i++) {
         float re = s->cx[2 * i], im = s->cx[2 * i + 1];
         s->la[i] = 0.5f * logf(re * re + im * im + 1e-12f);
@@ -315,7 +364,8 @@ static int root(region *r, int i)
     return i;
 }
 
-static void find_subject(coach_saliency *s, const float *map, float thr, coach_salient *out)
+static void find_subject(coach_saliency *s, const float *map, float thr, const double *hline,
+                         coach_salient *out)
 {
     memset(s->label, 0, sizeof s->label);
     region *rg = s->regions;
@@ -368,13 +418,39 @@ static void find_subject(coach_saliency *s, const float *map, float thr, coach_s
         rg[k] = r;
     }
     int nr = nlab < MAX_CAND ? nlab : MAX_CAND;
-    if (nr == 0)
+    if (hline) {
+        /* The horizon is the level's business: the spectral residual marks
+         * a straight edge most where the frame cuts it, so pieces lying on
+         * the horizon line and reaching a side (or spanning the frame) are
+         * neither subject nor intrusion. */
+        int k = 0;
+        for (int i = 0; i < nr; i++) {
+            double cxr = rg[i].sx / rg[i].mass - 0.5, cyr = rg[i].sy / rg[i].mass - 0.5;
+            int on_line = fabs(cyr - (hline[0] + hline[1] * cxr)) <= 4.0;
+            int at_side = (rg[i].sides & (COACH_EDGE_LEFT | COACH_EDGE_RIGHT)) ||
+                          rg[i].x1 - rg[i].x0 + 1 >= SPAN_CELLS;
+            if (on_line && at_side)
+                continue; /* still counted in total: salient, but not a subject */
+            rg[k++] = rg[i];
+        }
+        nr = k;
+    }
+    if (nr == 0 || !(total > 0))
         return;
     /* Intrusions: regions that reach a border and carry at least a tenth
-     * of the salient mass. */
-    for (int i = 0; i < nr; i++)
-        if (rg[i].mass >= 0.1 * total)
-            out->edges |= rg[i].sides;
+     * of the salient mass.  A region stretching across most of the frame
+     * (a shoreline; its ends may break off) is structure, not something
+     * cut off by the edge: its sides along that span do not count. */
+    for (int i = 0; i < nr; i++) {
+        if (rg[i].mass < 0.1 * total)
+            continue;
+        unsigned sd = rg[i].sides;
+        if (rg[i].x1 - rg[i].x0 + 1 >= SPAN_CELLS)
+            sd &= ~(unsigned)(COACH_EDGE_LEFT | COACH_EDGE_RIGHT);
+        if (rg[i].y1 - rg[i].y0 + 1 >= SPAN_CELLS)
+            sd &= ~(unsigned)(COACH_EDGE_TOP | COACH_EDGE_BOTTOM);
+        out->edges |= sd;
+    }
     /* Single-link grouping of regions with at least 2 % of the mass. */
     for (int i = 0; i < nr; i++)
         rg[i].parent = i;
@@ -431,7 +507,8 @@ static void find_subject(coach_saliency *s, const float *map, float thr, coach_s
 }
 
 const float *coach_saliency_run(coach_saliency *s, const float *luma, const float *r,
-                                const float *g, const float *b, int w, int h, coach_salient *out)
+                                const float *g, const float *b, int w, int h,
+                                const double *hline, coach_salient *out)
 {
     memset(out, 0, sizeof *out);
     if (!s || w < 1 || h < 1 || w > s->max_w || h > s->max_h)
@@ -460,7 +537,7 @@ const float *coach_saliency_run(coach_saliency *s, const float *luma, const floa
         out->balance_lr = mx / m;
         out->balance_tb = my / m;
     }
-    find_subject(s, s->map, (float)(3.0 * mean), out);
+    find_subject(s, s->map, (float)(3.0 * mean), hline, out);
     /* A subject that differs in colour from every part of the border is
      * located on the boundary-contrast map instead, which covers its whole
      * body; the spectral residual's outline pulls the centre toward the
@@ -471,7 +548,7 @@ const float *coach_saliency_run(coach_saliency *s, const float *luma, const floa
         float bmx = 0;
         for (int i = 0; i < NN; i++)
             bmx = s->bmap[i] > bmx ? s->bmap[i] : bmx;
-        find_subject(s, s->bmap, 0.4f * bmx, &bs);
+        find_subject(s, s->bmap, 0.4f * bmx, NULL, &bs);
         if (bs.has_subject && bs.subject.w < 0.8 && bs.subject.h < 0.8) {
             out->has_subject = 1;
             out->subject = bs.subject;

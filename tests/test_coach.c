@@ -1165,7 +1165,8 @@ static void test_placement_power_points(void **state)
 
 /* Balance leans toward the side holding the salient mass (sign convention
  * of coach.h: -1 left/top .. +1 right/bottom); a dark mass cut by the
- * right border is an intrusion on that side, a centred subject is none. */
+ * right border is an intrusion on that side, a centred subject or a
+ * horizon running out of both sides is none. */
 static void test_balance_and_edge_intrusions(void **state)
 {
     (void)state;
@@ -1188,6 +1189,15 @@ static void test_balance_and_edge_intrusions(void **state)
     assert_int_equal(coach_analyze(a, &f, 0.0, &r), 0);
     assert_true(r.edge_intrusions & COACH_EDGE_RIGHT);
     assert_false(r.edge_intrusions & COACH_EDGE_LEFT);
+    /* a horizon meeting both sides is the scene's structure, not an
+     * intrusion, tilted or not */
+    for (int k = -1; k <= 1; k++) {
+        b_horizon(&f, 2.5 * k, 0.4, 4.0);
+        coach_reset(a);
+        assert_int_equal(coach_analyze(a, &f, 0.0, &r), 0);
+        assert_int_equal(r.edge_intrusions, 0);
+        assert_false(r.has_subject); /* and no subject made of its ends */
+    }
     free((void *)f.data);
     coach_destroy(a);
 }
@@ -1197,7 +1207,8 @@ static void test_balance_and_edge_intrusions(void **state)
 /* A textured scene panned by a known shift per frame at 30 frames per
  * second: the measured global motion is that shift times the rate (ground
  * truth by construction; phase correlation, Kuglin & Hudson 1975).  Within
- * 5 %; a still scene measures under 5 px/s. */
+ * 5 %, or 10 px/s (a third of a full-resolution pixel per frame) for slow
+ * pans; a still scene measures under 5 px/s. */
 static void test_motion_known_shift(void **state)
 {
     (void)state;
@@ -1229,7 +1240,7 @@ static void test_motion_known_shift(void **state)
         if (truth == 0)
             assert_true(r.motion_px_s < 5.0);
         else
-            assert_true(fabs(r.motion_px_s - truth) <= 0.05 * truth);
+            assert_true(fabs(r.motion_px_s - truth) <= fmax(0.05 * truth, 10.0));
     }
     free(tex);
     free((void *)f.data);
