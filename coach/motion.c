@@ -206,16 +206,25 @@ int coach_motion_run(coach_motion *m, const float *luma, int w, int h, const coa
         double vb = prepare(m, m->prev_raw, m->wm, m->b);
         double va = prepare(m, m->cur_raw, m->wm, m->a);
         if (va >= MIN_TEXTURE && vb >= MIN_TEXTURE) {
+            /* Both patches are real: one complex transform of a + i b gives
+             * both spectra, A(k) = (Z(k) + conj Z(-k)) / 2 and
+             * B(k) = (Z(k) - conj Z(-k)) / 2i. */
+            for (int i = 0; i < MN; i++)
+                m->a[2 * i + 1] = m->b[2 * i];
             coach_fft2d(&m->px, &m->py, m->a, m->scratch, 0);
-            coach_fft2d(&m->px, &m->py, m->b, m->scratch, 0);
-            for (int i = 0; i < MN; i++) {
-                float ar = m->a[2 * i], ai = m->a[2 * i + 1];
-                float br = m->b[2 * i], bi = -m->b[2 * i + 1];
-                float re = ar * br - ai * bi, im = ar * bi + ai * br;
-                float mag = sqrtf(re * re + im * im) + 1e-20f;
-                m->a[2 * i] = re / mag;
-                m->a[2 * i + 1] = im / mag;
-            }
+            for (int v = 0; v < MH; v++)
+                for (int u = 0; u < MW; u++) {
+                    int q = v * MW + u, qm = ((MH - v) % MH) * MW + (MW - u) % MW;
+                    float zr = m->a[2 * q], zi = m->a[2 * q + 1];
+                    float mr = m->a[2 * qm], mi = m->a[2 * qm + 1];
+                    float ar = 0.5f * (zr + mr), ai = 0.5f * (zi - mi);
+                    float br = 0.5f * (zi + mi), bi = 0.5f * (zr - mr); /* conj B */
+                    float re = ar * br - ai * bi, im = ar * bi + ai * br;
+                    float mag = sqrtf(re * re + im * im) + 1e-20f;
+                    m->b[2 * q] = re / mag;
+                    m->b[2 * q + 1] = im / mag;
+                }
+            memcpy(m->a, m->b, sizeof m->a);
             coach_fft2d(&m->px, &m->py, m->a, m->scratch, 1);
             int bi = 0;
             float bv = -1e30f;
