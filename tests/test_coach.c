@@ -518,10 +518,11 @@ static void test_sharpness_laplacian_reflect101(void **state)
 static void test_tone_simd_matches_portable(void **state)
 {
     (void)state;
-    /* widths with tails after 16-pixel steps, and sizes whose blocks end
-     * before the frame does (1283 = 4 * 320 + 3; 45 rows = 11 * 4 + 1) */
-    static const int sizes[][2] = { { 1203, 77 }, { 1283, 45 } };
-    for (size_t k = 0; k < 2; k++) {
+    /* widths with tails after 16-pixel steps, sizes whose blocks end
+     * before the frame does (1283 = 4 * 320 + 3; 45 rows = 11 * 4 + 1), and
+     * block widths 3, 4 and 6 (the hand-written flushes) */
+    static const int sizes[][2] = { { 1203, 77 }, { 1283, 45 }, { 1925, 26 } };
+    for (size_t k = 0; k < 3; k++) {
         uint32_t seed = 4242 + (uint32_t)k;
         const int w = sizes[k][0], h = sizes[k][1];
         coach_frame f = a_xrgb(w, h, a_random, &seed);
