@@ -39,6 +39,7 @@ struct coach_motion {
     coach_box prev_box;
     float win[MN];
     float wm[MN];         /* subject mask weights, 0..1 */
+    float ok[MN];         /* cells that count for the mean and texture */
     float prev_raw[MN];   /* previous reduced patch, unmasked (-1: outside) */
     float cur_raw[MN];
     float a[2 * MN], b[2 * MN];
@@ -123,37 +124,46 @@ static void mask_box(float *wm, const coach_box *bx, int w, int h, int k)
  * outside the image count as the mean); returns the texture: the mean
  * squared difference between neighbouring cells of full weight (0 when
  * too few are left). */
-static double prepare(const coach_motion *m, const float *raw, const float *wm, float *out)
+static double prepare(coach_motion *m, const float *raw, const float *wm, float *out)
 {
-    double sum = 0, tex = 0;
-    int cnt = 0, ntex = 0;
-    for (int y = 0; y < MH; y++)
+    /* ok: 1 for cells inside the image and of full weight (branch-free,
+     * so the sums below vectorise) */
+    float *restrict ok = m->ok;
+    for (int i = 0; i < MN; i++)
+        ok[i] = (float)((raw[i] >= 0) & (wm[i] >= 1.0f));
+    float sum = 0, cnt = 0, tex = 0, ntex = 0;
+    for (int y = 0; y < MH; y++) {
+        const float *r = raw + y * MW, *o = ok + y * MW;
+        float rs = 0, rc = 0, rt = 0, rn = 0;
         for (int x = 0; x < MW; x++) {
-            int i = y * MW + x;
-            if (raw[i] < 0 || wm[i] < 1.0f)
-                continue;
-            sum += raw[i];
-            cnt++;
-            if (x + 1 < MW && raw[i + 1] >= 0 && wm[i + 1] >= 1.0f) {
-                double d = raw[i + 1] - raw[i];
-                tex += d * d;
-                ntex++;
-            }
-            if (y + 1 < MH && raw[i + MW] >= 0 && wm[i + MW] >= 1.0f) {
-                double d = raw[i + MW] - raw[i];
-                tex += d * d;
-                ntex++;
-            }
+            rs += o[x] * r[x];
+            rc += o[x];
         }
-    if (cnt < MN / 8 || ntex == 0)
+        for (int x = 0; x + 1 < MW; x++) {
+            float d = r[x + 1] - r[x], wgt = o[x] * o[x + 1];
+            rt += wgt * d * d;
+            rn += wgt;
+        }
+        if (y + 1 < MH)
+            for (int x = 0; x < MW; x++) {
+                float d = r[x + MW] - r[x], wgt = o[x] * o[x + MW];
+                rt += wgt * d * d;
+                rn += wgt;
+            }
+        sum += rs;
+        cnt += rc;
+        tex += rt;
+        ntex += rn;
+    }
+    if (cnt < MN / 8 || ntex < 1)
         return 0;
-    const float mean = (float)(sum / cnt);
+    const float mean = sum / cnt;
     for (int i = 0; i < MN; i++) {
         float v = raw[i] >= 0 ? (raw[i] - mean) * wm[i] : 0.0f;
         out[2 * i] = v * m->win[i];
         out[2 * i + 1] = 0;
     }
-    return tex / ntex;
+    return (double)tex / ntex;
 }
 
 static double parabola(double a, double b, double c)
