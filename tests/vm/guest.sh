@@ -247,7 +247,7 @@ live_start $MP && {
 timeout 60 $VF --headless --frames 3 --size 640x480 --fps 25 > $T/def.jsonl 2> $T/def.err
 [ $? = 0 ] && [ "$(nlines $T/def.jsonl)" -ge 3 ] && pass "default camera: no --device streams /dev/video0" ||
     { fail "default camera"; cat $T/def.err; }
-timeout 60 $VF --headless --frames 3 --device vivid --size 640x480 --fps 25 > $T/name.jsonl 2> $T/name.err
-[ $? = 0 ] && [ "$(nlines $T/name.jsonl)" -ge 3 ] && pass "camera by card name: --device vivid streams" ||
+timeout 60 $VF --headless --frames 3 --source vivid --size 640x480 --fps 25 > $T/name.jsonl 2> $T/name.err
+[ $? = 0 ] && [ "$(nlines $T/name.jsonl)" -ge 3 ] && pass "camera by card name: --source vivid streams" ||
     { fail "camera by card name"; cat $T/name.err; }
 echo "guest: done"
