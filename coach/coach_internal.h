@@ -155,7 +155,8 @@ const float *coach_saliency_run(coach_saliency *s, const float *luma, const floa
 
 /* Global frame-to-frame shift by phase correlation (motion.c). */
 typedef struct coach_motion coach_motion;
-coach_motion *coach_motion_create(void);
+/* Preallocates for analysis images up to max_w wide. */
+coach_motion *coach_motion_create(int max_w);
 void coach_motion_destroy(coach_motion *m);
 void coach_motion_reset(coach_motion *m);
 /* Shift of this frame's content against the previous one, analysis pixels

@@ -46,7 +46,7 @@ coach_compose *coach_compose_create(int max_aw, int max_ah)
     c->max_h = max_ah;
     c->level = coach_level_create(max_aw, max_ah);
     c->sal = coach_saliency_create(max_aw, max_ah);
-    c->motion = coach_motion_create();
+    c->motion = coach_motion_create(max_aw);
     if (!c->level || !c->sal || !c->motion) {
         coach_compose_destroy(c);
         return NULL;

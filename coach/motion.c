@@ -32,6 +32,7 @@
 #define RAMP 6.0
 
 struct coach_motion {
+    int max_w;
     coach_fft_plan px, py;
     int have_prev;
     int prev_k;
@@ -40,19 +41,24 @@ struct coach_motion {
     float win[MN];
     float wm[MN];         /* subject mask weights, 0..1 */
     float ok[MN];         /* cells that count for the mean and texture */
+    float *rowsum;        /* one analysis row of k rows summed (max_w) */
     float prev_raw[MN];   /* previous reduced patch, unmasked (-1: outside) */
     float cur_raw[MN];
     float a[2 * MN], b[2 * MN];
     float scratch[2 * MN];
 };
 
-coach_motion *coach_motion_create(void)
+coach_motion *coach_motion_create(int max_w)
 {
+    if (max_w < 1)
+        return NULL;
     coach_motion *m = calloc(1, sizeof *m);
     if (!m)
         return NULL;
-    if (coach_fft_plan_init(&m->px, MW) || coach_fft_plan_init(&m->py, MH)) {
-        free(m);
+    m->max_w = max_w;
+    m->rowsum = malloc((size_t)max_w * sizeof(float));
+    if (!m->rowsum || coach_fft_plan_init(&m->px, MW) || coach_fft_plan_init(&m->py, MH)) {
+        coach_motion_destroy(m);
         return NULL;
     }
     for (int y = 0; y < MH; y++)
@@ -62,7 +68,13 @@ coach_motion *coach_motion_create(void)
     return m;
 }
 
-void coach_motion_destroy(coach_motion *m) { free(m); }
+void coach_motion_destroy(coach_motion *m)
+{
+    if (!m)
+        return;
+    free(m->rowsum);
+    free(m);
+}
 
 void coach_motion_reset(coach_motion *m)
 {
@@ -71,25 +83,41 @@ void coach_motion_reset(coach_motion *m)
 }
 
 /* The middle MW x MH of the image reduced by k; -1 where it falls outside. */
-static void take_patch(const float *luma, int w, int h, int k, float *p)
+static void take_patch(coach_motion *m, const float *luma, int w, int h, int k, float *p)
 {
     const int rw = w / k, rh = h / k;
     const int ox = (rw - MW) / 2, oy = (rh - MH) / 2;
     const float inv = 1.0f / (float)(k * k);
+    /* the columns of the image the patch covers, in analysis pixels */
+    const int x0 = (ox > 0 ? ox : 0) * k, x1 = (ox + MW < rw ? ox + MW : rw) * k;
+    float *restrict row = m->rowsum;
     for (int y = 0; y < MH; y++) {
         int ry = oy + y;
+        float *o = p + y * MW;
+        if (ry < 0 || ry >= rh) {
+            for (int x = 0; x < MW; x++)
+                o[x] = -1.0f;
+            continue;
+        }
+        /* k rows summed whole (contiguous, vectorised), then k columns */
+        const float *s0 = luma + (size_t)ry * k * w;
+        for (int xx = x0; xx < x1; xx++)
+            row[xx] = s0[xx];
+        for (int j = 1; j < k; j++) {
+            const float *sj = s0 + (size_t)j * w;
+            for (int xx = x0; xx < x1; xx++)
+                row[xx] += sj[xx];
+        }
         for (int x = 0; x < MW; x++) {
             int rx = ox + x;
-            float v = -1.0f;
-            if (rx >= 0 && ry >= 0 && rx < rw && ry < rh) {
-                const float *s = luma + (size_t)ry * k * w + (size_t)rx * k;
-                float acc = 0;
-                for (int j = 0; j < k; j++)
-                    for (int i = 0; i < k; i++)
-                        acc += s[(size_t)j * w + i];
-                v = acc * inv;
+            if (rx < 0 || rx >= rw) {
+                o[x] = -1.0f;
+                continue;
             }
-            p[y * MW + x] = v;
+            float acc = 0;
+            for (int i = 0; i < k; i++)
+                acc += row[rx * k + i];
+            o[x] = acc * inv;
         }
     }
 }
@@ -197,12 +225,12 @@ int coach_motion_run(coach_motion *m, const float *luma, int w, int h, const coa
                      double *dx, double *dy)
 {
     *dx = *dy = 0;
-    if (!m || w < 8 || h < 8)
+    if (!m || w < 8 || h < 8 || w > m->max_w)
         return 0;
     int k = w / 160;
     if (k < 1)
         k = 1;
-    take_patch(luma, w, h, k, m->cur_raw);
+    take_patch(m, luma, w, h, k, m->cur_raw);
     int measured = 0;
     if (m->have_prev && m->prev_k == k) {
         /* One soft mask for both frames over the subject's region in
