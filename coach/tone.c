@@ -631,6 +631,63 @@ FLUSH_FN(flush_u16, uint16_t, int32_t)
 FLUSH_FN(flush_i32, int32_t, int32_t)
 FLUSH_FN(flush_u32, uint32_t, uint32_t)
 #if TONE_AVX2
+/* Sums of adjacent int32 pairs of a:b, in order. */
+__attribute__((target("avx2"))) static inline __m256i pairs_i32(__m256i a, __m256i b)
+{
+    return _mm256_permute4x64_epi64(_mm256_hadd_epi32(a, b), 0xD8);
+}
+
+/* Block k of width 6 from the pair sums P0..P23 in pa, pb, pc:
+ * P[3k] + P[3k+1] + P[3k+2], gathered by blends and one permute each. */
+__attribute__((target("avx2"))) static inline __m256i triples_i32(__m256i pa, __m256i pb,
+                                                                 __m256i pc)
+{
+    const __m256i i0 = _mm256_setr_epi32(0, 3, 6, 1, 4, 7, 2, 5);
+    const __m256i i1 = _mm256_setr_epi32(1, 4, 7, 2, 5, 0, 3, 6);
+    const __m256i i2 = _mm256_setr_epi32(2, 5, 0, 3, 6, 1, 4, 7);
+    __m256i x0 = _mm256_blend_epi32(_mm256_blend_epi32(pa, pb, 0x92), pc, 0x24);
+    __m256i x1 = _mm256_blend_epi32(_mm256_blend_epi32(pa, pb, 0x24), pc, 0x49);
+    __m256i x2 = _mm256_blend_epi32(_mm256_blend_epi32(pa, pb, 0x49), pc, 0x92);
+    x0 = _mm256_permutevar8x32_epi32(x0, i0);
+    x1 = _mm256_permutevar8x32_epi32(x1, i1);
+    x2 = _mm256_permutevar8x32_epi32(x2, i2);
+    return _mm256_add_epi32(_mm256_add_epi32(x0, x1), x2);
+}
+
+/* The scalar tail of the flushes below. */
+#define FLUSH_TAIL()                                                            \
+    for (; ax < aw; ax++) {                                                   \
+        int32_t sum = 0;                                                      \
+        for (int i = 0; i < scale; i++)                                       \
+            sum += acc[(size_t)ax * scale + i];                               \
+        out[ax] = (float)sum * k;                                             \
+    }
+
+/* The same for the Laplacian planes (int32 sums; at widths 4 and 6 a block
+ * of L^2 is at most 36 * 1020^2, far inside int32). */
+__attribute__((target("avx2"))) static int flush_i32_avx2(const int32_t *restrict acc, int scale,
+                                                         int aw, float k, float *restrict out)
+{
+    if (scale != 4 && scale != 6)
+        return 0;
+    const __m256 kk = _mm256_set1_ps(k);
+    int ax = 0;
+    for (; ax + 8 <= aw; ax += 8) {
+        const __m256i *a = (const __m256i *)(acc + (size_t)ax * scale);
+        __m256i pa = pairs_i32(_mm256_loadu_si256(a), _mm256_loadu_si256(a + 1));
+        __m256i pb = pairs_i32(_mm256_loadu_si256(a + 2), _mm256_loadu_si256(a + 3));
+        __m256i q;
+        if (scale == 4)
+            q = pairs_i32(pa, pb);
+        else
+            q = triples_i32(pa, pb,
+                            pairs_i32(_mm256_loadu_si256(a + 4), _mm256_loadu_si256(a + 5)));
+        _mm256_storeu_ps(out + ax, _mm256_mul_ps(_mm256_cvtepi32_ps(q), kk));
+    }
+    FLUSH_TAIL()
+    return 1;
+}
+
 /* The flush of a u16 plane for the block widths of 720p (4) and 1080p (6)
  * by hand: pair sums with a multiply-add, then the pairs of each block
  * gathered by blends and one permute.  Integer sums, so the output is
@@ -643,40 +700,16 @@ __attribute__((target("avx2"))) static int flush_u16_avx2(const uint16_t *restri
     const __m256i one = _mm256_set1_epi16(1);
     const __m256 kk = _mm256_set1_ps(k);
     int ax = 0;
-    if (scale == 4) {
-        for (; ax + 8 <= aw; ax += 8) {
-            const __m256i *a = (const __m256i *)(acc + (size_t)ax * 4);
-            __m256i pa = _mm256_madd_epi16(_mm256_loadu_si256(a), one);
-            __m256i pb = _mm256_madd_epi16(_mm256_loadu_si256(a + 1), one);
-            __m256i q = _mm256_permute4x64_epi64(_mm256_hadd_epi32(pa, pb), 0xD8);
-            _mm256_storeu_ps(out + ax, _mm256_mul_ps(_mm256_cvtepi32_ps(q), kk));
-        }
-    } else {
-        const __m256i i0 = _mm256_setr_epi32(0, 3, 6, 1, 4, 7, 2, 5);
-        const __m256i i1 = _mm256_setr_epi32(1, 4, 7, 2, 5, 0, 3, 6);
-        const __m256i i2 = _mm256_setr_epi32(2, 5, 0, 3, 6, 1, 4, 7);
-        for (; ax + 8 <= aw; ax += 8) {
-            /* pair sums P0..P23; block k is P[3k] + P[3k+1] + P[3k+2] */
-            const __m256i *a = (const __m256i *)(acc + (size_t)ax * 6);
-            __m256i pa = _mm256_madd_epi16(_mm256_loadu_si256(a), one);
-            __m256i pb = _mm256_madd_epi16(_mm256_loadu_si256(a + 1), one);
-            __m256i pc = _mm256_madd_epi16(_mm256_loadu_si256(a + 2), one);
-            __m256i x0 = _mm256_blend_epi32(_mm256_blend_epi32(pa, pb, 0x92), pc, 0x24);
-            __m256i x1 = _mm256_blend_epi32(_mm256_blend_epi32(pa, pb, 0x24), pc, 0x49);
-            __m256i x2 = _mm256_blend_epi32(_mm256_blend_epi32(pa, pb, 0x49), pc, 0x92);
-            x0 = _mm256_permutevar8x32_epi32(x0, i0);
-            x1 = _mm256_permutevar8x32_epi32(x1, i1);
-            x2 = _mm256_permutevar8x32_epi32(x2, i2);
-            __m256i q = _mm256_add_epi32(_mm256_add_epi32(x0, x1), x2);
-            _mm256_storeu_ps(out + ax, _mm256_mul_ps(_mm256_cvtepi32_ps(q), kk));
-        }
+    for (; ax + 8 <= aw; ax += 8) {
+        /* pair sums by multiply-add (P0..P15, or P0..P23), then blocks */
+        const __m256i *a = (const __m256i *)(acc + (size_t)ax * scale);
+        __m256i pa = _mm256_madd_epi16(_mm256_loadu_si256(a), one);
+        __m256i pb = _mm256_madd_epi16(_mm256_loadu_si256(a + 1), one);
+        __m256i q = scale == 4 ? pairs_i32(pa, pb)
+                               : triples_i32(pa, pb, _mm256_madd_epi16(_mm256_loadu_si256(a + 2), one));
+        _mm256_storeu_ps(out + ax, _mm256_mul_ps(_mm256_cvtepi32_ps(q), kk));
     }
-    for (; ax < aw; ax++) {
-        int32_t sum = 0;
-        for (int i = 0; i < scale; i++)
-            sum += acc[(size_t)ax * scale + i];
-        out[ax] = (float)sum * k;
-    }
+    FLUSH_TAIL()
     return 1;
 }
 #endif
@@ -939,8 +972,16 @@ int coach_tone_run(coach_tone *t, const coach_frame *f, coach_result *out, coach
             int yb = ly % scale;
             if (yb == scale - 1) {
                 size_t o = (size_t)(ly / scale) * aw;
-                flush_i32(t->accl, scale, aw, kblk, tmp, pl_l + o);
-                flush_u32((const uint32_t *)t->accq, scale, aw, kblk, (uint32_t *)tmp, pl_q + o);
+                int done = 0;
+#if TONE_AVX2
+                done = t->simd && flush_i32_avx2(t->accl, scale, aw, kblk, pl_l + o) &&
+                       flush_i32_avx2(t->accq, scale, aw, kblk, pl_q + o);
+#endif
+                if (!done) {
+                    flush_i32(t->accl, scale, aw, kblk, tmp, pl_l + o);
+                    flush_u32((const uint32_t *)t->accq, scale, aw, kblk, (uint32_t *)tmp,
+                              pl_q + o);
+                }
             }
         }
     }
