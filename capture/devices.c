@@ -77,6 +77,7 @@ int cap_dev_identify(const char *node, cap_dev_id *id)
         id->index = atoi(s);
     copy_str(id->id_path, sizeof id->id_path, udev_device_get_property_value(d, "ID_PATH"));
     copy_str(id->serial, sizeof id->serial, udev_device_get_property_value(d, "ID_SERIAL"));
+    copy_str(id->v4l_caps, sizeof id->v4l_caps, udev_device_get_property_value(d, "ID_V4L_CAPABILITIES"));
     struct udev_device *p = udev_device_get_parent(d); /* owned by d */
     if (p)
         copy_str(id->parent, sizeof id->parent, udev_device_get_syspath(p));
@@ -349,6 +350,8 @@ int cap_camera_list(cap_camera_info **out, char *err, size_t errlen)
         int r = cap_v4l2_query(&cap_v4l2_io_default, nodes[i], &id, &caps, &fd, why, sizeof why);
         if (r == -ENOTTY || r == -ENOENT || r == -ENODEV)
             continue; /* not a camera (metadata, output), or gone meanwhile */
+        if (r < 0 && id.v4l_caps[0] && !strstr(id.v4l_caps, ":capture:"))
+            continue; /* cannot open it, but udev's v4l_id says it is no camera */
         cap_camera_info *c = &list[n++];
         copy_str(c->node, sizeof c->node, nodes[i]);
         copy_str(c->by_id, sizeof c->by_id, id.by_id);

@@ -41,6 +41,7 @@ typedef struct cap_dev_id {
     char bus[64];         /* QUERYCAP bus_info                               */
     char by_id[192];      /* /dev/v4l/by-id link ("" without udev)            */
     char by_path[192];    /* /dev/v4l/by-path link                           */
+    char v4l_caps[64];    /* udev ID_V4L_CAPABILITIES (":capture:"...; "" without udev) */
 } cap_dev_id;
 
 /* ---- modes and the choice among them ---------------------------------- */

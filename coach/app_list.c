@@ -23,7 +23,12 @@ static void print_rates(FILE *out, const cap_camera_mode *m)
 static void print_camera(FILE *out, const cap_camera_info *c)
 {
     if (c->problem[0]) {
-        fprintf(out, "%s\n  cannot be opened now: %s\n", c->node, c->problem);
+        /* the line names the node first; it is the heading already */
+        const char *why = c->problem;
+        size_t k = strlen(c->node);
+        if (!strncmp(why, c->node, k) && !strncmp(why + k, ": ", 2))
+            why += k + 2;
+        fprintf(out, "%s\n  %s\n", c->node, why);
     } else {
         fprintf(out, "%s  \"%s\"\n", c->node, c->card);
         fprintf(out, "  driver %s, bus %s%s\n", c->driver, c->bus,

@@ -209,6 +209,14 @@ MP=/dev/video8
 VIVID="n_devs=2 multiplanar=1,2"
 reload $VIVID vid_cap_nr=0,8
 check_list
+# a camera this user may not open is still listed, with the reason and the fix
+as_nobody "$VF --list" > $T/list-nobody.txt 2>&1
+if [ $? = 0 ] && grep -q '^/dev/video0$' $T/list-nobody.txt &&
+   grep -q 'cannot open: permission denied.*video.*group' $T/list-nobody.txt; then
+    pass "list as uid 65534: /dev/video0 listed as not openable: permission denied, with the video group and udev rule hint"
+else
+    fail "list as uid 65534"; head -n 8 $T/list-nobody.txt
+fi
 for fmt in YUYV:YUYV NV12:NV12 RGB24:RGB3; do
     capture_start single $SP ${fmt%%:*} ${fmt##*:}
     capture_start multiplanar $MP ${fmt%%:*} ${fmt##*:}
