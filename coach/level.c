@@ -32,6 +32,10 @@
 #define VOTE_SPREAD 4             /* +-2 degrees around the gradient angle    */
 #define T_ABS 12.0f               /* Sobel magnitude floor, ~3-6 luma levels  */
 #define MAX_PEAKS 12
+/* Only edges among the strongest VOTE_TOP_PCT % of gradients vote: in a
+ * busy texture (a choppy sea) the rest cannot outvote a real line but cost
+ * as much to count.  The line fits still use every edge above threshold. */
+#define VOTE_TOP_PCT 10
 #define MAX_VERT_LINES 10
 
 enum { FAM_H = 0, FAM_V = 1 };
@@ -53,6 +57,7 @@ struct coach_level {
     int max_w, max_h, nrho_max;
     float *gx, *gy, *mag;
     int *edge_idx;       /* indices of edge pixels                          */
+    int16_t *edge_x, *edge_y; /* and their coordinates                      */
     float *acc;          /* [2][NANG][nrho]                                 */
     float *pos, *wt;     /* sub-pixel positions along one line              */
     uint8_t *keep;
@@ -76,11 +81,13 @@ coach_level *coach_level_create(int max_w, int max_h)
     l->gy = malloc(n * sizeof(float));
     l->mag = malloc(n * sizeof(float));
     l->edge_idx = malloc(n * sizeof(int));
+    l->edge_x = malloc(n * sizeof(int16_t));
+    l->edge_y = malloc(n * sizeof(int16_t));
     l->acc = malloc((size_t)2 * NANG * nrho * sizeof(float));
     l->pos = malloc((size_t)len * sizeof(float));
     l->wt = malloc((size_t)len * sizeof(float));
     l->keep = malloc((size_t)len);
-    if (!l->gx || !l->gy || !l->mag || !l->edge_idx || !l->acc || !l->pos ||
+    if (!l->gx || !l->gy || !l->mag || !l->edge_idx || !l->edge_x || !l->edge_y || !l->acc || !l->pos ||
         !l->wt || !l->keep) {
         coach_level_destroy(l);
         return NULL;
@@ -102,6 +109,8 @@ void coach_level_destroy(coach_level *l)
     free(l->gy);
     free(l->mag);
     free(l->edge_idx);
+    free(l->edge_x);
+    free(l->edge_y);
     free(l->acc);
     free(l->pos);
     free(l->wt);
@@ -128,9 +137,10 @@ static void sobel_row(const float *a, const float *b, const float *c, float *res
  * holding the squared magnitude.  Returns the edge threshold on the
  * magnitude: the floor, or twice the median magnitude when noise lifts the
  * median (for Gaussian noise few Sobel magnitudes exceed twice the median,
- * so thin noise edges rarely pass).  The median comes from a sample of
- * every second pixel of every second row. */
-static float gradients(coach_level *l, const float *p, int w, int h)
+ * so thin noise edges rarely pass); *vote_thr gets the voting threshold
+ * (see VOTE_TOP_PCT).  Both come from a sample of every second pixel of
+ * every second row. */
+static float gradients(coach_level *l, const float *p, int w, int h, float *vote_thr)
 {
     uint32_t hist[64];
     memset(hist, 0, sizeof hist);
@@ -159,8 +169,16 @@ static float gradients(coach_level *l, const float *p, int w, int h)
     int med = 0;
     while (med < 63 && acc + hist[med] < total / 2)
         acc += hist[med++];
+    int hi = med;
+    while (hi < 63 && acc + hist[hi] < total - total * VOTE_TOP_PCT / 100)
+        acc += hist[hi++];
     float thr = 2.0f * (2.0f * med + 1.0f);
-    return thr > T_ABS ? thr : T_ABS;
+    if (thr < T_ABS)
+        thr = T_ABS;
+    *vote_thr = 2.0f * (hi + 1);
+    if (*vote_thr < thr)
+        *vote_thr = thr;
+    return thr;
 }
 
 /* atan2 in degrees from an odd polynomial for atan on [0, 1] (coefficients
@@ -210,6 +228,8 @@ static int thin_edges(coach_level *l, int w, int h, float thr)
             if (mm < m[x - off] || mm <= m[x + off])
                 continue;
             l->edge_idx[n] = y * w + x;
+            l->edge_x[n] = (int16_t)x;
+            l->edge_y[n] = (int16_t)y;
             n++;
         }
     }
@@ -251,21 +271,20 @@ static void vote(coach_level *l, int w, int h, int nedge, float thr, int nrho, i
         }
         if (fam != only)
             continue;
-        float x = (float)(idx % w) - cx, y = (float)(idx / w) - cy;
+        float x = (float)l->edge_x[e] - cx, y = (float)l->edge_y[e] - cy;
         float m = sqrtf(l->mag[idx]);
         float wv = m < cap ? m : cap;
-        int ic = (int)lrintf((alpha + (float)FAM_HALF_DEG) / (float)BIN_DEG);
+        int ic = (int)((alpha + (float)FAM_HALF_DEG) * (1.0f / (float)BIN_DEG) + 0.5f);
         int i0 = ic - VOTE_SPREAD, i1 = ic + VOTE_SPREAD;
         if (i0 < 0)
             i0 = 0;
         if (i1 > NANG - 1)
             i1 = NANG - 1;
-        float *acc = l->acc + (size_t)fam * NANG * nrho;
-        for (int i = i0; i <= i1; i++) {
-            float r = x * l->cosv[fam][i] + y * l->sinv[fam][i] + roff;
-            int ir = (int)(r + 0.5f);
-            acc[(size_t)i * nrho + ir] += wv;
-        }
+        const float *cv = l->cosv[fam], *sv = l->sinv[fam];
+        float *arow = l->acc + ((size_t)fam * NANG + (size_t)i0) * nrho;
+        const float rx = roff + 0.5f; /* rho >= 0 after the offset: truncation rounds */
+        for (int i = i0; i <= i1; i++, arow += nrho)
+            arow[(int)(x * cv[i] + y * sv[i] + rx)] += wv;
     }
 }
 
@@ -616,8 +635,9 @@ void coach_level_run(coach_level *l, const float *luma, int w, int h, coach_leve
     if (!l || w < 16 || h < 16 || w > l->max_w || h > l->max_h)
         return;
     const int nrho = (int)ceil(sqrt((double)w * w + (double)h * h)) + 3;
-    float thr = gradients(l, luma, w, h);
-    int nedge = thin_edges(l, w, h, thr);
+    float vthr;
+    float thr = gradients(l, luma, w, h, &vthr);
+    int nedge = thin_edges(l, w, h, vthr);
     if (nedge < 16)
         return;
     vote(l, w, h, nedge, thr, nrho, FAM_H);
