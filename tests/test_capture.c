@@ -1216,6 +1216,7 @@ typedef struct fk_dev {
     int nmodes;
     uint32_t emulated;          /* a fourcc listed with V4L2_FMT_FLAG_EMULATED */
     uint32_t stepwise;          /* a fourcc whose sizes are a stepwise range   */
+    int no_enum_sizes;          /* a driver without ENUM_FRAMESIZES/INTERVALS  */
     uint32_t caps;              /* device_caps (0: video capture + streaming)  */
     int open_errno, s_fmt_errno, dqbuf_errno;
     mode_t stat_mode;           /* 0: a character device                       */
@@ -1346,6 +1347,8 @@ static int fk_ioctl(int fd, unsigned long req, void *arg)
     }
     case VIDIOC_ENUM_FRAMESIZES: {
         struct v4l2_frmsizeenum *s = arg;
+        if (d->no_enum_sizes)
+            break;
         if (s->pixel_format == d->stepwise) {
             if (s->index)
                 break;
@@ -1366,7 +1369,7 @@ static int fk_ioctl(int fd, unsigned long req, void *arg)
     case VIDIOC_ENUM_FRAMEINTERVALS: {
         struct v4l2_frmivalenum *fi = arg;
         const fk_mode *m = fk_find(fi->pixel_format, (int)fi->width, (int)fi->height);
-        if (!m || fi->index >= 8 || !m->fps[fi->index])
+        if (d->no_enum_sizes || !m || fi->index >= 8 || !m->fps[fi->index])
             break;
         fi->type = V4L2_FRMIVAL_TYPE_DISCRETE;
         fi->discrete.numerator = 1;
@@ -1616,6 +1619,22 @@ static void test_v4l2_choose_slow_and_stepwise(void **state)
     assert_int_equal(fk_choose(&c, (cap_v4l2_want){.w = 1280, .h = 720, .fps = 60}, &m, &fps), 0);
     assert_int_equal(m.w, 1280);
     assert_true(fabs(fps - 60) < 1e-9);
+}
+
+/* A driver that cannot enumerate sizes (both ioctls are optional in the
+ * V4L2 spec): the size VIDIOC_TRY_FMT settles on and the current rate. */
+static void test_v4l2_enum_without_framesizes(void **state)
+{
+    (void)state;
+    static const fk_mode one[] = {{V4L2_PIX_FMT_YUYV, 1280, 720, {15, 0}}};
+    fk_dev d = {.modes = one, .nmodes = 1, .no_enum_sizes = 1, .tpf = {1, 15}};
+    cap_v4l2_mode m;
+    double fps;
+    assert_int_equal(fk_choose(&d, (cap_v4l2_want){0}, &m, &fps), 0);
+    assert_int_equal(m.w, 1280);
+    assert_int_equal(m.h, 720);
+    assert_int_equal(m.nrates, 1);
+    assert_true(fabs(fps - 15) < 1e-9);
 }
 
 static void assert_one_line_naming(const char *err, const char *dev, const char *cause)
@@ -2057,6 +2076,7 @@ int main(void)
         cmocka_unit_test(test_v4l2_choose_cheapest_format),
         cmocka_unit_test(test_v4l2_choose_nearest_size_and_rate),
         cmocka_unit_test(test_v4l2_choose_slow_and_stepwise),
+        cmocka_unit_test(test_v4l2_enum_without_framesizes),
         cmocka_unit_test(test_v4l2_errno_messages),
         cmocka_unit_test(test_v4l2_open_bad_devices),
         cmocka_unit_test(test_v4l2_stream_passthrough),
