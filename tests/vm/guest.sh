@@ -260,4 +260,10 @@ timeout 60 $VF --headless --frames 3 --size 640x480 --fps 25 > $T/def.jsonl 2> $
 timeout 60 $VF --headless --frames 3 --source vivid --size 640x480 --fps 25 > $T/name.jsonl 2> $T/name.err
 [ $? = 0 ] && [ "$(nlines $T/name.jsonl)" -ge 3 ] && pass "camera by card name: --source vivid streams" ||
     { fail "camera by card name"; cat $T/name.err; }
+# a stable link as udev would make it (no udev daemon here, so by hand)
+mkdir -p /dev/v4l/by-path && ln -sf /dev/video0 /dev/v4l/by-path/platform-vivid.0-video-index0
+timeout 60 $VF --headless --frames 3 --device /dev/v4l/by-path/platform-vivid.0-video-index0 --size 640x480 --fps 25 \
+    > $T/link.jsonl 2> $T/link.err
+[ $? = 0 ] && [ "$(nlines $T/link.jsonl)" -ge 3 ] && pass "camera by stable link: --device /dev/v4l/by-path/... streams" ||
+    { fail "camera by stable link"; cat $T/link.err; }
 echo "guest: done"
