@@ -287,8 +287,10 @@ int cap_default_camera(char *path, size_t n)
             copy_str(path, n, nodes[i]);
             return 0;
         }
-        if (fallback < 0 && (r == -EACCES || r == -EPERM || r == -EBUSY))
-            fallback = i;
+        cap_dev_id u;
+        if (fallback < 0 && (r == -EACCES || r == -EPERM || r == -EBUSY) &&
+            (cap_dev_identify(nodes[i], &u) < 0 || !u.v4l_caps[0] || strstr(u.v4l_caps, ":capture:")))
+            fallback = i; /* a camera as far as udev can tell without opening it */
     }
     if (fallback >= 0) {
         copy_str(path, n, nodes[fallback]);
