@@ -1021,6 +1021,43 @@ static void test_level_rendered_horizons(void **state)
     assert_true(worst_y <= 0.02);
 }
 
+/* A subject standing on the horizon (a boat) interrupts it: the level and
+ * horizon height keep the issue's bounds, and the subject is still found
+ * (centre within 5 % of the diagonal). */
+static void test_level_horizon_behind_subject(void **state)
+{
+    (void)state;
+    static const uint8_t hull[3] = {240, 235, 220};
+    coach_analyzer *a = b_analyzer(COACH_GRID_THIRDS);
+    static coach_result r;
+    coach_frame f = b_frame(1280, 720);
+    for (double deg = -10; deg <= 10.01; deg += 5) {
+        const double yf = 0.42, xs = 0.3, rad = 0.07;
+        /* the subject's centre sits on the horizon */
+        const double ys = yf - (xs - 0.5) * f.w * tan(deg * M_PI / 180.0) / f.h;
+        b_horizon(&f, deg, yf, 4.0);
+        for (int y = 0; y < f.h; y++)
+            for (int x = 0; x < f.w; x++) {
+                double in = 0.5 - (hypot(x + 0.5 - xs * f.w, y + 0.5 - ys * f.h) - rad * f.h);
+                if (in <= 0)
+                    continue;
+                in = in > 1 ? 1 : in;
+                uint8_t *p = b_px(&f, x, y);
+                for (int c = 0; c < 3; c++)
+                    p[c] = b_u8(p[c] * (1 - in) + hull[c] * in);
+            }
+        coach_reset(a);
+        assert_int_equal(coach_analyze(a, &f, 0.0, &r), 0);
+        assert_true(r.has_tilt && r.has_horizon);
+        assert_true(fabs(r.tilt_deg - deg) <= 0.3);
+        assert_true(fabs(r.horizon_y - yf) <= 0.02);
+        assert_true(r.has_subject);
+        assert_true(hypot((r.subject.x - xs) * f.w, (r.subject.y - ys) * f.h) / hypot(f.w, f.h) <= 0.05);
+    }
+    free((void *)f.data);
+    coach_destroy(a);
+}
+
 /* Flat fields, blank frames and noise carry no line: the issue asks for
  * null there, not a guess. */
 static void test_level_none_without_lines(void **state)
@@ -1480,6 +1517,7 @@ int main(void)
         cmocka_unit_test(test_alloc_steady_state_zero),
         /* ---- section B ---- */
         cmocka_unit_test(test_level_rendered_horizons),
+        cmocka_unit_test(test_level_horizon_behind_subject),
         cmocka_unit_test(test_level_none_without_lines),
         cmocka_unit_test(test_level_from_verticals),
         cmocka_unit_test(test_subject_centre_anywhere),
