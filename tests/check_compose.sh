@@ -1,6 +1,6 @@
 #!/bin/bash
 # Composition analysis against reference libraries (tests/compose_reference.py):
-# the Hough peak against cv2.HoughLines, the saliency map against OpenCV's
+# the Hough peak (horizon and wall edges) against cv2.HoughLines, the saliency map against OpenCV's
 # spectral residual (correlation), the level on building.jpg (Debian
 # opencv-doc) rotated by known angles, and subject focus against
 # cv2.Laplacian.  Uses `vfcoach inspect`.  Non-zero exit on any failure.

@@ -91,6 +91,46 @@ def hough_checks():
               % (w, h, deg, t_me, r_me, t_cv, r_cv))
 
 
+def wall_image(w, h, deg, xf, seed):
+    """A wall's edge: dark left, light right, through (xf*w, h/2), leaning
+    with a camera roll of deg (+: its top to the left); BGR uint8."""
+    rng = np.random.default_rng(seed)
+    y, x = np.mgrid[0:h, 0:w].astype(np.float64)
+    th = math.radians(deg)
+    d = (x + 0.5 - xf * w) * math.cos(th) - (y + 0.5 - 0.5 * h) * math.sin(th)
+    lit = np.clip(d + 0.5, 0, 1)
+    v = 60 + 120 * lit + rng.normal(0, 2.0, lit.shape)
+    return cv2.cvtColor(np.clip(np.rint(v), 0, 255).astype(np.uint8), cv2.COLOR_GRAY2BGR)
+
+
+def hough_vertical_checks():
+    # The vertical family, same reference and bounds: a single wall edge,
+    # so both transforms have one strongest line.
+    for i, (w, h, deg, xf) in enumerate([(640, 480, 4.0, 0.45), (1280, 720, -7.5, 0.6),
+                                        (960, 540, 12.0, 0.35)]):
+        img = wall_image(w, h, deg, xf, 30 + i)
+        p = write("wall%d.png" % i, img)
+        j = inspect(p)
+        mine = j["hough"]
+        edges = cv2.Canny(cv2.cvtColor(img, cv2.COLOR_BGR2GRAY), 40, 100)
+        lines = cv2.HoughLines(edges, 1, math.pi / 720, h // 4)
+        if lines is None or mine is None:
+            check(False, "hough vertical %dx%d %.1f deg: a line from both" % (w, h, deg))
+            continue
+        r_cv, t_cv = float(lines[0][0][0]), math.degrees(float(lines[0][0][1]))
+        t_me, r_me = mine["theta_deg"], mine["rho"]
+        dt = t_me - t_cv
+        if dt > 90:
+            dt, r_cv = dt - 180, -r_cv
+        elif dt < -90:
+            dt, r_cv = dt + 180, -r_cv
+        check(abs(dt) <= 0.5 and abs(r_me - r_cv) <= 2.0 and j["level_source"] == "verticals"
+              and abs(j["tilt_deg"] - deg) <= 0.5,
+              "hough vertical %dx%d %+.1f deg: mine theta %.3f rho %.2f (tilt %s, %s), "
+              "OpenCV theta %.3f rho %.2f" % (w, h, deg, t_me, r_me, j["tilt_deg"], j["level_source"],
+                                              t_cv, r_cv))
+
+
 # ---- 2. saliency map against OpenCV's spectral residual ------------------------
 # Reference: cv2.saliency.StaticSaliencySpectralResidual_create() (opencv
 # contrib, Debian python3-opencv), the same method (Hou & Zhang 2007).  Both
@@ -197,6 +237,7 @@ def focus_checks():
 
 
 hough_checks()
+hough_vertical_checks()
 saliency_checks()
 rotation_checks()
 focus_checks()
