@@ -17,8 +17,10 @@
  *     angle.  The fit's coverage and residual decide whether the line is real.
  *  4. The dominant near-horizontal line that crosses most of the frame (a
  *     horizon, shoreline or table edge) gives the level; without one, the
- *     weighted median of the near-vertical lines (walls, door frames, masts)
- *     does.  Flat, blank and noise-only frames give no level at all.
+ *     near-vertical lines (walls, door frames, masts) do, through the
+ *     direction of their vanishing point (see verticals()).  A steep
+ *     "horizon" that the verticals contradict is a receding line and loses
+ *     to them.  Flat, blank and noise-only frames give no level at all.
  */
 #include <math.h>
 #include <stdlib.h>
@@ -381,7 +383,7 @@ static void fit_line(coach_level *l, int w, int h, int fam, double alpha_deg, do
     double pol = 0;
     for (int u = 2; u < nal - 2; u += 4) {
         double v0 = cac + (rho_c - (u - cal) * c_al) / c_ac;
-        int vi = (int)lrint(v0);
+        int vi = (int)floor(v0 + 0.5);
         if (vi < 2 || vi > nac - 3)
             continue;
         int idx = u * st_al + vi * st_ac;
@@ -391,7 +393,7 @@ static void fit_line(coach_level *l, int w, int h, int fam, double alpha_deg, do
     int span = 0;
     for (int u = 2; u < nal - 2; u++) {
         double v0 = cac + (rho_c - (u - cal) * c_al) / c_ac;
-        int vi = (int)lrint(v0);
+        int vi = (int)floor(v0 + 0.5);
         l->wt[u] = 0;
         if (vi < 2 || vi > nac - 3)
             continue;
