@@ -4,9 +4,14 @@
  * The map is the spectral residual of Hou & Zhang (CVPR 2007): at 64x64,
  * the log amplitude spectrum minus its 3x3 local mean is the "unexpected"
  * part of the spectrum; transformed back with the original phase, squared
- * and smoothed, it marks what stands out from the scene's statistics.  The
- * object map is the map above three times its mean (the paper's threshold);
- * its connected region with the most saliency is the subject.
+ * and smoothed, it marks what stands out from the scene's statistics.  It
+ * is taken of the image's periodic component (Moisan 2011), so the seams of
+ * the DFT's implicit tiling are not salient.  The object map is the map
+ * above three times its mean (the paper's threshold); its group of nearby
+ * regions with the most saliency is the subject, unless a region differs
+ * in colour from the whole border (boundary contrast, below), which then
+ * locates the subject.  Balance is the saliency's lever about the centre;
+ * intrusions are salient regions cut by a side of the frame.
  */
 #include <math.h>
 #include <stdlib.h>
