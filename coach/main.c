@@ -254,22 +254,29 @@ static int parse_opts(int argc, char **argv, app_opts *o)
 
 /* ---- waking the main thread ---------------------------------------- */
 
+enum { EVB_LOST = 1, EVB_BACK = 2, EVB_END = 4 };
+
 typedef struct app_wake {
     Uint32 sdl_event;   /* registered SDL event type, or 0 without a window */
     int efd;            /* eventfd, without a window                         */
-    volatile int lost;  /* set from the capture thread: 1 lost, 2 back, 3 end */
+    int events;         /* EVB_* bits set by the capture thread, taken by the main thread */
+    int last;           /* the latest cap_event other than CAP_EV_FRAME */
 } app_wake;
 
 /* Runs on the capture thread: only wakes the main thread. */
 static void on_capture_event(void *ctx, cap_event ev)
 {
     app_wake *w = ctx;
+    /* Bits, not a value: a loss and a return that both happen before the
+     * main thread looks must both be reported. */
     if (ev == CAP_EV_LOST)
-        __atomic_store_n(&w->lost, 1, __ATOMIC_RELEASE);
+        __atomic_fetch_or(&w->events, EVB_LOST, __ATOMIC_RELEASE);
     else if (ev == CAP_EV_BACK)
-        __atomic_store_n(&w->lost, 2, __ATOMIC_RELEASE);
+        __atomic_fetch_or(&w->events, EVB_BACK, __ATOMIC_RELEASE);
     else if (ev == CAP_EV_END)
-        __atomic_store_n(&w->lost, 3, __ATOMIC_RELEASE);
+        __atomic_fetch_or(&w->events, EVB_END, __ATOMIC_RELEASE);
+    if (ev != CAP_EV_FRAME)
+        __atomic_store_n(&w->last, (int)ev, __ATOMIC_RELEASE);
     if (w->sdl_event) {
         SDL_Event e;
         SDL_zero(e);
@@ -373,13 +380,18 @@ static int analyse_newest(app_run *r, cap_frame *f)
     return 1;
 }
 
-static void report_state(app_run *r, int lost_code)
+/* Prints what happened to the source since the last look: one line per
+ * event, the cause from the capture thread's status where it has one. */
+static void report_events(app_run *r, int ev, char *line, size_t n)
 {
-    char line[256];
-    cap_thread_status(r->th, line, sizeof line);
+    cap_thread_status(r->th, line, n);
+    /* A loss followed by a return before we looked: the status now tells
+     * the return, so the loss gets its own plain line. */
+    if ((ev & EVB_LOST) && (ev & (EVB_BACK | EVB_END)))
+        fprintf(stderr, "vfcoach: %s: camera lost\n", r->srcname);
     if (!line[0])
-        snprintf(line, sizeof line, "%s", lost_code == 1 ? "camera lost" :
-                 lost_code == 2 ? "camera back" : "source ended");
+        snprintf(line, n, "%s: %s", r->srcname,
+                 (ev & EVB_END) ? "source ended" : (ev & EVB_BACK) ? "camera back" : "camera lost");
     fprintf(stderr, "vfcoach: %s\n", line);
 }
 
@@ -410,10 +422,11 @@ static int run_terminal(app_run *r)
         uint64_t cnt;
         if (n > 0 && read(r->wake.efd, &cnt, sizeof cnt) < 0 && errno != EAGAIN)
             break;
-        int lost = __atomic_exchange_n(&r->wake.lost, 0, __ATOMIC_ACQ_REL);
-        if (lost) {
-            report_state(r, lost);
-            if (lost == 3) {
+        int ev = __atomic_exchange_n(&r->wake.events, 0, __ATOMIC_ACQ_REL);
+        if (ev) {
+            char line[256];
+            report_events(r, ev, line, sizeof line);
+            if (ev & EVB_END) {
                 rc = 1;
                 break;
             }
@@ -510,11 +523,11 @@ static int run_window(app_run *r)
             }
         } while (SDL_PollEvent(&e));
 
-        int lost = __atomic_exchange_n(&r->wake.lost, 0, __ATOMIC_ACQ_REL);
-        if (lost) {
-            report_state(r, lost);
-            cap_thread_status(r->th, message, sizeof message);
-            st.source_lost = (lost == 1 || lost == 3);
+        int ev = __atomic_exchange_n(&r->wake.events, 0, __ATOMIC_ACQ_REL);
+        if (ev) {
+            report_events(r, ev, message, sizeof message);
+            int last = __atomic_load_n(&r->wake.last, __ATOMIC_ACQUIRE);
+            st.source_lost = (last == CAP_EV_LOST || last == CAP_EV_END);
             st.message = st.source_lost ? message : NULL;
         }
         if (app_shots_poll(&r->shots)) { /* h5: on-ready exit status */
@@ -543,7 +556,7 @@ static int run_window(app_run *r)
             }
             if (r->o->frames && r->analysed >= r->o->frames)
                 break;
-        } else if (lost && have_result) {
+        } else if (ev && have_result) {
             ovl_render(win, NULL, &r->res, &st);
         }
     }
