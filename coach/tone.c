@@ -39,8 +39,9 @@
 /* The kernels below are written for the auto-vectoriser.  The program's
  * release build is -O2, where GCC only vectorises the cheapest loops, so
  * this file asks for -O3 when optimising at all; on x86-64 the kernels are
- * also cloned for AVX2 and picked at load time (ifunc), which halves their
- * cost on machines that have it and changes no result (integer maths).  The
+ * also built a second time for AVX2 and picked when the analyzer is made
+ * (tone_kernels below), which halves their cost on machines that have it
+ * and changes no result (integer maths).  The
  * two hottest rows (XRGB8888 pixels, the Laplacian) also have hand-written
  * AVX2 versions, chosen at run time and bit-identical to the portable
  * loops (tests/test_coach.c runs both).
@@ -52,11 +53,14 @@
 #if defined(__GNUC__) && !defined(__clang__) && defined(__OPTIMIZE__)
 #pragma GCC optimize("O3")
 #endif
-#if defined(__x86_64__) && defined(__GNUC__) && !defined(__clang__) && defined(__OPTIMIZE__)
-#define VEC __attribute__((target_clones("avx2", "default")))
-#else
-#define VEC
-#endif
+/* Each such kernel is an always-inline body (KBODY) instantiated twice,
+ * portable and with target("avx2"), and reached through a table of function
+ * pointers chosen once with __builtin_cpu_supports in coach_tone_create.
+ * Not target_clones: its ifunc resolvers run while the dynamic loader
+ * relocates the program, before a sanitiser's runtime is initialised, and
+ * the thread-sanitiser build crashed there before main().  One indirect
+ * call per row costs nothing measurable. */
+#define KBODY static inline __attribute__((always_inline))
 /* Table lookups must stay scalar: "vectorised" they become lane-by-lane
  * inserts and extracts, slower than plain loads. */
 #if defined(__GNUC__) && !defined(__clang__) && defined(__OPTIMIZE__)
@@ -88,8 +92,11 @@ struct coach_tone {
                                   not serialise on store forwarding */
     uint32_t lin[3][256];      /* K_c * sRGB-decoded(v) * 2^24, c = R,G,B */
     uint32_t lin_grey[256];    /* sRGB-decoded(v) * 2^24                  */
-    int simd;                  /* use the AVX2 XRGB kernel (CPU has it)   */
+    int simd;                  /* use the AVX2 kernels (CPU has them)     */
+    const struct tone_kernels *k; /* portable or AVX2 set, per simd       */
 };
+
+static const struct tone_kernels *tone_kernels_pick(int simd);
 
 double coach_srgb_decode(double v)
 {
@@ -191,6 +198,7 @@ coach_tone *coach_tone_create(int max_w, int max_h)
     __builtin_cpu_init();
     t->simd = __builtin_cpu_supports("avx2");
 #endif
+    t->k = tone_kernels_pick(t->simd);
     if (max_w > 0 && max_h > 0) {
         int s, aw, ah;
         coach_tone_geometry(max_w, max_h, &s, &aw, &ah);
@@ -207,6 +215,7 @@ int coach_tone_set_simd(coach_tone *t, int on)
 #if TONE_AVX2
     int had = t->simd;
     t->simd = on && __builtin_cpu_supports("avx2");
+    t->k = tone_kernels_pick(t->simd);
     return had;
 #else
     (void)t;
@@ -245,13 +254,13 @@ unpack_rgb3(const uint8_t *restrict p, int w, int ri, int bi, uint8_t *restrict 
     }
 }
 
-VEC static void unpack_rgb24(const uint8_t *restrict p, int w, uint8_t *restrict r,
+KBODY void unpack_rgb24_k(const uint8_t *restrict p, int w, uint8_t *restrict r,
                          uint8_t *restrict g, uint8_t *restrict b, uint8_t *restrict y)
 {
     unpack_rgb3(p, w, 0, 2, r, g, b, y);
 }
 
-VEC static void unpack_bgr24(const uint8_t *restrict p, int w, uint8_t *restrict r,
+KBODY void unpack_bgr24_k(const uint8_t *restrict p, int w, uint8_t *restrict r,
                          uint8_t *restrict g, uint8_t *restrict b, uint8_t *restrict y)
 {
     unpack_rgb3(p, w, 2, 0, r, g, b, y);
@@ -273,7 +282,7 @@ typedef struct colour_sums { int32_t srg, syb, qrg, qyb; } colour_sums;
 #define SH_R 16
 #endif
 
-VEC static void xrgb_fused(const uint8_t *restrict p, int x0, int x1, uint8_t *restrict y,
+KBODY void xrgb_fused_k(const uint8_t *restrict p, int x0, int x1, uint8_t *restrict y,
                            uint16_t *restrict ar, uint16_t *restrict ag, uint16_t *restrict ab,
                            uint16_t *restrict ay, int first, int acc, colour_sums *cs)
 {
@@ -404,24 +413,9 @@ xrgb_fused_avx2(const uint8_t *restrict p, int x0, int x1, uint8_t *restrict y,
     cs->qrg += tot[2];
     cs->qyb += tot[3];
     if (x < x1) /* the last few pixels */
-        xrgb_fused(p, x, x1, y, ar, ag, ab, ay, first, acc, cs);
+        xrgb_fused_k(p, x, x1, y, ar, ag, ab, ay, first, acc, cs);
 }
 #endif
-
-static void xrgb_span(const coach_tone *t, const uint8_t *p, int x0, int x1, uint8_t *y,
-                      uint16_t *ar, uint16_t *ag, uint16_t *ab, uint16_t *ay, int first, int acc,
-                      colour_sums *cs)
-{
-#if TONE_AVX2
-    if (t->simd) {
-        xrgb_fused_avx2(p, x0, x1, y, ar, ag, ab, ay, first, acc, cs);
-        return;
-    }
-#else
-    (void)t;
-#endif
-    xrgb_fused(p, x0, x1, y, ar, ag, ab, ay, first, acc, cs);
-}
 
 /* Y'CbCr -> R'G'B' in 1/16384 units, per ITU-R BT.601-7 / BT.709-6:
  * E'R = E'Y + 2(1-Kr) Cr, E'B = E'Y + 2(1-Kb) Cb,
@@ -470,7 +464,7 @@ static inline uint8_t clamp8_q14(int v)
         b[2 * (i) + 1] = clamp8_q14(y1_ + db_);                               \
     } while (0)
 
-VEC static void unpack_yuyv(const uint8_t *restrict p, int w, const yuv_coef *c,
+KBODY void unpack_yuyv_k(const uint8_t *restrict p, int w, const yuv_coef *c,
                             uint8_t *restrict r, uint8_t *restrict g, uint8_t *restrict b,
                             uint8_t *restrict y)
 {
@@ -479,7 +473,7 @@ VEC static void unpack_yuyv(const uint8_t *restrict p, int w, const yuv_coef *c,
         YUV_PAIR(p[4 * i], p[4 * i + 2], p[4 * i + 1], p[4 * i + 3], i);
 }
 
-VEC static void unpack_nv12(const uint8_t *restrict py, const uint8_t *restrict pc, int w,
+KBODY void unpack_nv12_k(const uint8_t *restrict py, const uint8_t *restrict pc, int w,
                             const yuv_coef *c, uint8_t *restrict r, uint8_t *restrict g,
                             uint8_t *restrict b, uint8_t *restrict y)
 {
@@ -546,7 +540,7 @@ SCALAR static void hist_lin_row(coach_tone *t, const uint8_t *restrict y, const 
     s->nlin += (uint64_t)(w - x0 + 3) / 4;
 }
 
-VEC static void colour_row(const uint8_t *restrict r, const uint8_t *restrict g,
+KBODY void colour_row_k(const uint8_t *restrict r, const uint8_t *restrict g,
                            const uint8_t *restrict b, int w, tone_sums *s)
 {
     /* |R+G-2B| <= 510: chunks of 4096 keep the int32 square sums exact
@@ -571,7 +565,7 @@ VEC static void colour_row(const uint8_t *restrict r, const uint8_t *restrict g,
 }
 
 /* First row of a block assigns, later rows add: no clearing pass. */
-VEC static void acc_colour(uint16_t *restrict acc, const uint8_t *restrict r,
+KBODY void acc_colour_k(uint16_t *restrict acc, const uint8_t *restrict r,
                        const uint8_t *restrict g, const uint8_t *restrict b,
                        const uint8_t *restrict y, int n, int W, int first)
 {
@@ -717,7 +711,7 @@ __attribute__((target("avx2"))) static int flush_u16_avx2(const uint16_t *restri
 
 /* Laplacian [0 1 0; 1 -4 1; 0 1 0] of row c with the rows above (u) and
  * below (d), reflect-101 at the left and right ends. */
-VEC static void lap_row(const uint8_t *restrict u, const uint8_t *restrict c,
+KBODY void lap_row_k(const uint8_t *restrict u, const uint8_t *restrict c,
                     const uint8_t *restrict d, int w, int16_t *restrict L)
 {
     L[0] = (int16_t)(u[0] + d[0] + 2 * c[1] - 4 * c[0]);
@@ -729,7 +723,7 @@ VEC static void lap_row(const uint8_t *restrict u, const uint8_t *restrict c,
 /* Sums of L and L^2 over the row and, for rows inside the blocks, the
  * block column sums (mode 1: first row of a block, 2: later rows), in one
  * read of L. */
-VEC static void lap_sums_acc(const int16_t *restrict L, int w, int n_acc, int mode,
+KBODY void lap_sums_acc_k(const int16_t *restrict L, int w, int n_acc, int mode,
                              int32_t *restrict al, int32_t *restrict aq, tone_sums *s)
 {
     for (int x0 = 0; x0 < w; x0 += LAP_CHUNK) {
@@ -852,6 +846,109 @@ lap_avx2(const uint8_t *restrict u, const uint8_t *restrict c, const uint8_t *re
 }
 #endif
 
+/* The kernels' two instances and the table the analyzer points at. */
+struct tone_kernels {
+    void (*rgb24)(const uint8_t *, int, uint8_t *, uint8_t *, uint8_t *, uint8_t *);
+    void (*bgr24)(const uint8_t *, int, uint8_t *, uint8_t *, uint8_t *, uint8_t *);
+    void (*xrgb)(const uint8_t *, int, int, uint8_t *, uint16_t *, uint16_t *, uint16_t *,
+                 uint16_t *, int, int, colour_sums *);
+    void (*yuyv)(const uint8_t *, int, const yuv_coef *, uint8_t *, uint8_t *, uint8_t *,
+                 uint8_t *);
+    void (*nv12)(const uint8_t *, const uint8_t *, int, const yuv_coef *, uint8_t *, uint8_t *,
+                 uint8_t *, uint8_t *);
+    void (*colour)(const uint8_t *, const uint8_t *, const uint8_t *, int, tone_sums *);
+    void (*acc)(uint16_t *, const uint8_t *, const uint8_t *, const uint8_t *, const uint8_t *,
+                int, int, int);
+    void (*lap)(const uint8_t *, const uint8_t *, const uint8_t *, int, int16_t *);
+    void (*lap_sums)(const int16_t *, int, int, int, int32_t *, int32_t *, tone_sums *);
+};
+
+#define TONE_KERNEL_SET(SUF, ATTR)                                                              \
+    ATTR static void krgb24_##SUF(const uint8_t *restrict p, int w, uint8_t *restrict r,        \
+                                 uint8_t *restrict g, uint8_t *restrict b, uint8_t *restrict y) \
+    {                                                                                         \
+        unpack_rgb24_k(p, w, r, g, b, y);                                                     \
+    }                                                                                         \
+    ATTR static void kbgr24_##SUF(const uint8_t *restrict p, int w, uint8_t *restrict r,        \
+                                 uint8_t *restrict g, uint8_t *restrict b, uint8_t *restrict y) \
+    {                                                                                         \
+        unpack_bgr24_k(p, w, r, g, b, y);                                                     \
+    }                                                                                         \
+    ATTR static void kxrgb_##SUF(const uint8_t *restrict p, int x0, int x1, uint8_t *restrict y, \
+                                uint16_t *restrict ar, uint16_t *restrict ag,                 \
+                                uint16_t *restrict ab, uint16_t *restrict ay, int first,      \
+                                int acc, colour_sums *cs)                                     \
+    {                                                                                         \
+        xrgb_fused_k(p, x0, x1, y, ar, ag, ab, ay, first, acc, cs);                           \
+    }                                                                                         \
+    ATTR static void kyuyv_##SUF(const uint8_t *restrict p, int w, const yuv_coef *c,          \
+                                uint8_t *restrict r, uint8_t *restrict g, uint8_t *restrict b, \
+                                uint8_t *restrict y)                                          \
+    {                                                                                         \
+        unpack_yuyv_k(p, w, c, r, g, b, y);                                                   \
+    }                                                                                         \
+    ATTR static void knv12_##SUF(const uint8_t *restrict py, const uint8_t *restrict pc, int w, \
+                                const yuv_coef *c, uint8_t *restrict r, uint8_t *restrict g,  \
+                                uint8_t *restrict b, uint8_t *restrict y)                     \
+    {                                                                                         \
+        unpack_nv12_k(py, pc, w, c, r, g, b, y);                                              \
+    }                                                                                         \
+    ATTR static void kcolour_##SUF(const uint8_t *restrict r, const uint8_t *restrict g,       \
+                                  const uint8_t *restrict b, int w, tone_sums *s)             \
+    {                                                                                         \
+        colour_row_k(r, g, b, w, s);                                                          \
+    }                                                                                         \
+    ATTR static void kacc_##SUF(uint16_t *restrict acc, const uint8_t *restrict r,             \
+                               const uint8_t *restrict g, const uint8_t *restrict b,          \
+                               const uint8_t *restrict y, int n, int W, int first)            \
+    {                                                                                         \
+        acc_colour_k(acc, r, g, b, y, n, W, first);                                           \
+    }                                                                                         \
+    ATTR static void klap_##SUF(const uint8_t *restrict u, const uint8_t *restrict c,          \
+                               const uint8_t *restrict d, int w, int16_t *restrict L)         \
+    {                                                                                         \
+        lap_row_k(u, c, d, w, L);                                                             \
+    }                                                                                         \
+    ATTR static void klap_sums_##SUF(const int16_t *restrict L, int w, int n_acc, int mode,    \
+                                    int32_t *restrict al, int32_t *restrict aq, tone_sums *s) \
+    {                                                                                         \
+        lap_sums_acc_k(L, w, n_acc, mode, al, aq, s);                                         \
+    }                                                                                         \
+    static const struct tone_kernels kernels_##SUF = {                                        \
+        krgb24_##SUF, kbgr24_##SUF, kxrgb_##SUF,   kyuyv_##SUF,    knv12_##SUF,                   \
+        kcolour_##SUF, kacc_##SUF,  klap_##SUF,    klap_sums_##SUF,                              \
+    };
+
+TONE_KERNEL_SET(portable, )
+#if TONE_AVX2
+TONE_KERNEL_SET(avx2, __attribute__((target("avx2"))))
+#endif
+
+static const struct tone_kernels *tone_kernels_pick(int simd)
+{
+#if TONE_AVX2
+    if (simd)
+        return &kernels_avx2;
+#endif
+    (void)simd;
+    return &kernels_portable;
+}
+
+static void xrgb_span(const coach_tone *t, const uint8_t *p, int x0, int x1, uint8_t *y,
+                      uint16_t *ar, uint16_t *ag, uint16_t *ab, uint16_t *ay, int first, int acc,
+                      colour_sums *cs)
+{
+#if TONE_AVX2
+    if (t->simd) {
+        xrgb_fused_avx2(p, x0, x1, y, ar, ag, ab, ay, first, acc, cs);
+        return;
+    }
+#else
+    (void)t;
+#endif
+    t->k->xrgb(p, x0, x1, y, ar, ag, ab, ay, first, acc, cs);
+}
+
 /* ---- the pass ---------------------------------------------------------- */
 
 int coach_tone_check(const coach_frame *f)
@@ -921,11 +1018,11 @@ int coach_tone_run(coach_tone *t, const coach_frame *f, coach_result *out, coach
                 hist_lin_row(t, yr, p + 2, p + 1, p, 4, w, 0, y, &s);
             } else {
                 switch (f->format) {
-                case COACH_FMT_RGB24: unpack_rgb24(p, w, r, g, b, yr); break;
-                case COACH_FMT_BGR24: unpack_bgr24(p, w, r, g, b, yr); break;
-                case COACH_FMT_YUYV: unpack_yuyv(p, w, &yc, r, g, b, yr); break;
+                case COACH_FMT_RGB24: t->k->rgb24(p, w, r, g, b, yr); break;
+                case COACH_FMT_BGR24: t->k->bgr24(p, w, r, g, b, yr); break;
+                case COACH_FMT_YUYV: t->k->yuyv(p, w, &yc, r, g, b, yr); break;
                 case COACH_FMT_NV12:
-                    unpack_nv12(p, plane2 + (size_t)stride2 * (y / 2), w, &yc, r, g, b, yr);
+                    t->k->nv12(p, plane2 + (size_t)stride2 * (y / 2), w, &yc, r, g, b, yr);
                     break;
                 default: /* GREY: the luma is the picture (full range, as V4L2 GREY) */
                     memcpy(yr, p, (size_t)w);
@@ -934,9 +1031,9 @@ int coach_tone_run(coach_tone *t, const coach_frame *f, coach_result *out, coach
                 }
                 hist_lin_row(t, yr, r, g, b, 1, w, grey, y, &s);
                 if (!grey)
-                    colour_row(r, g, b, w, &s);
+                    t->k->colour(r, g, b, w, &s);
                 if (y < bh)
-                    acc_colour(t->acc, r, g, b, yr, bw, (int)W, y % scale == 0);
+                    t->k->acc(t->acc, r, g, b, yr, bw, (int)W, y % scale == 0);
             }
             if (y < bh && y % scale == scale - 1) {
                 size_t o = (size_t)(y / scale) * aw;
@@ -965,8 +1062,8 @@ int coach_tone_run(coach_tone *t, const coach_frame *f, coach_result *out, coach
         } else
 #endif
         {
-            lap_row(u, c, d, w, t->lap);
-            lap_sums_acc(t->lap, w, bw, mode, t->accl, t->accq, &s);
+            t->k->lap(u, c, d, w, t->lap);
+            t->k->lap_sums(t->lap, w, bw, mode, t->accl, t->accq, &s);
         }
         if (ly < bh) {
             int yb = ly % scale;
