@@ -190,6 +190,7 @@ static int bench_size(int w, int h, int frames)
         double t2 = cpu_ms();
         coach_compose_run(comp, &img, w, h, t, &cfg, res);
         double t3 = cpu_ms();
+        coach_score_sharpness_ref(&sc, t, res);
         coach_score_terms(&cfg, sc.have, res);
         coach_score_update(&sc, &cfg, t, res);
         coach_score_hints(&cfg, res);

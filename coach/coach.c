@@ -171,6 +171,7 @@ int coach_analyze(coach_analyzer *a, const coach_frame *f, double t, coach_resul
     if ((err = coach_tone_run(a->tone, f, out, &img)))
         return err;
     coach_compose_run(a->compose, &img, f->w, f->h, t, &a->cfg, out);
+    coach_score_sharpness_ref(&a->score, t, out);
     coach_score_terms(&a->cfg, a->score.have, out);
     coach_score_update(&a->score, &a->cfg, t, out);
     coach_score_hints(&a->cfg, out);

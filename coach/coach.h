@@ -114,6 +114,10 @@ typedef struct coach_result {
     uint32_t hist[256];             /* 8-bit luma histogram, full resolution   */
     double colourfulness;           /* Hasler & Süsstrunk M, 8-bit sRGB units  */
     double sharpness;               /* variance of the 3x3 Laplacian of luma   */
+    double sharpness_ref;           /* the best sharpness this scene showed
+                                       recently (decaying maximum, ~6 s), the
+                                       reference of the live sharpness judgement;
+                                       = sharpness on a first frame or a still */
 
     /* composition */
     int has_tilt;                   /* 0: no usable lines; fields below unset */

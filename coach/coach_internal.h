@@ -71,9 +71,13 @@ typedef struct coach_score_state {
     int ready;
     int above;             /* score has been >= ready_enter since above_t   */
     double above_t;
+    double sharp_peak;     /* decaying maximum of the frame sharpness       */
 } coach_score_state;
 
 void coach_score_reset(coach_score_state *s);
+/* Tracks the scene's recent best sharpness at time t and fills
+ * r->sharpness_ref; call before coach_score_terms. */
+void coach_score_sharpness_ref(coach_score_state *s, double t, coach_result *r);
 /* Fills terms, nterms and score_raw of *r from its measurements; have_prev
  * says whether frame-to-frame terms (steadiness) are meaningful. */
 void coach_score_terms(const coach_config *cfg, int have_prev, coach_result *r);

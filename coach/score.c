@@ -13,9 +13,23 @@
  * exposure within a third of a stop of the target reads right; a few tenths
  * of a percent of clipped highlights go unnoticed while a few percent are a
  * visibly blown area; a roll of 1 degree is about where a tilted horizon
- * starts to show; a variance of the Laplacian near 100 is the usual
- * "in focus" threshold for 8-bit images.  They are constants here so the
- * tests and the README can name them.
+ * starts to show.  They are constants here so the tests and the README can
+ * name them.
+ *
+ * Sharpness is judged the way contrast-detect autofocus judges it: against
+ * the same scene, not against a fixed number.  The variance of the
+ * Laplacian depends as much on what is in the frame (a seamless backdrop
+ * has almost none, sea ripples plenty) as on focus, so a fixed threshold
+ * called sharp product shots soft.  Live, the frame is compared with the
+ * best sharpness the scene showed in the last few seconds (a decaying
+ * maximum, coach_score_sharpness_ref); a drop to a third of it is already
+ * a visible softening.  A still, or the first frame, has nothing to compare
+ * with, so a lenient absolute floor judges it, set low enough that a sharp
+ * frame of a smooth product scene passes and only a plainly blurred frame
+ * fails; the floor also applies live, so a scene that was never sharp
+ * cannot read sharp just because it is as soft as before.  Both curves are
+ * logarithmic: for a blurred edge the variance falls by a power of the blur
+ * radius, so equal ratios are equal steps of blur.
  */
 #include <math.h>
 #include <string.h>
@@ -80,12 +94,22 @@ static const double ev_target[COACH_PROFILE_COUNT] = { 0.0, 0.0, 0.5 };
 #define CLIP_HIGH_SPAN 0.03
 #define CLIP_LOW_OK 0.01       /* deep shadows are more forgiving            */
 #define CLIP_LOW_SPAN 0.10
-#define SHARP_HALF 100.0       /* Laplacian variance scoring 0.5             */
+#define SHARP_REL_LO 0.03      /* sharpness / recent best scoring 0          */
+#define SHARP_REL_HI 0.5       /* ... scoring 1: a drop to half goes unseen  */
+#define SHARP_FLOOR_LO 4.0     /* absolute variance scoring 0 (plainly blurred) */
+#define SHARP_FLOOR_HI 40.0    /* ... scoring 1 (a sharp smooth-backdrop shot) */
+#define SHARP_PEAK_TAU 6.0     /* s: the recent best decays with this constant,
+                                  spanning the soft phase of a focus pull yet
+                                  forgetting a more textured view within
+                                  seconds after reframing                    */
 #define COLOUR_LOW 15.0        /* H&S "slightly colourful": value 0 below    */
 #define COLOUR_HIGH 45.0       /* H&S "averagely colourful": value 1 above   */
 #define LEVEL_HALF_DEG 1.0     /* roll scoring 0.5                           */
 #define HORIZON_SPAN 0.15      /* distance to the guide line scoring 0       */
-#define PLACEMENT_SPAN 0.15    /* distance to a power point scoring 0 (diag) */
+#define PLACEMENT_OK 0.05      /* distance (diag) that still counts as on the
+                                  point: issue 3's accuracy for the subject
+                                  centre, so no points for what we cannot see */
+#define PLACEMENT_SPAN 0.15    /* further distance scoring 0 (diag)          */
 #define BALANCE_OK 0.3
 #define BALANCE_SPAN 0.5
 #define EDGE_PENALTY 0.4       /* per side with salient mass on it           */
@@ -95,10 +119,69 @@ static const double ev_target[COACH_PROFILE_COUNT] = { 0.0, 0.0, 0.5 };
 #define FOCUS_LOW 0.5          /* subject/frame sharpness scoring 0          */
 #define FOCUS_HIGH 1.5         /* ... scoring 1                              */
 #define HINT_BELOW 0.75        /* terms below this value may get a hint      */
+#define HINT_MIN_POINTS 3.0    /* ... when they also cost at least this many of
+                                  the 100 points: a light term a little off
+                                  (colour on a neutral product) is no advice */
 
 static double clamp01(double v)
 {
     return v < 0 ? 0 : v > 1 ? 1 : v;
+}
+
+/* log(v / lo) / log(hi / lo), clamped: 0 at lo, 1 at hi. */
+static double log_ramp(double v, double lo, double hi)
+{
+    return v > 0 ? clamp01(log(v / lo) / log(hi / lo)) : 0;
+}
+
+/* The absolute floor, on the sharper of the frame and the subject's box:
+ * a smooth backdrop or sky lowers the whole-frame variance without anything
+ * being out of focus. */
+static double sharp_floor(const coach_result *r)
+{
+    double sh = r->sharpness;
+    if (r->has_subject_focus && isfinite(r->subject_focus) && r->subject_focus > 1)
+        sh *= r->subject_focus;
+    return log_ramp(sh, SHARP_FLOOR_LO, SHARP_FLOOR_HI);
+}
+
+/* The live judgement: this frame against the scene's recent best (1 when
+ * there is no reference). */
+static double sharp_rel(const coach_result *r)
+{
+    if (!(r->sharpness_ref > 0) || !isfinite(r->sharpness_ref))
+        return 1;
+    return log_ramp(r->sharpness / r->sharpness_ref, SHARP_REL_LO, SHARP_REL_HI);
+}
+
+void coach_score_sharpness_ref(coach_score_state *s, double t, coach_result *r)
+{
+    double sh = r->sharpness;
+    if (!isfinite(sh) || sh < 0) {
+        r->sharpness_ref = 0;
+        return;
+    }
+    if (!s->have || !(t >= s->t_last) || !(s->sharp_peak > 0))
+        s->sharp_peak = sh;
+    else
+        s->sharp_peak = fmax(sh, s->sharp_peak * exp(-(t - s->t_last) / SHARP_PEAK_TAU));
+    r->sharpness_ref = s->sharp_peak;
+}
+
+/* Products are commonly centred on a seamless backdrop (common practice in
+ * catalogue work): in the product profile the frame centre counts as a
+ * place for the subject as good as a power point.  Distance from the
+ * subject centre to the frame centre as a fraction of the diagonal. */
+static double centre_distance(const coach_result *r)
+{
+    double w = r->width > 0 ? r->width : 1, h = r->height > 0 ? r->height : 1;
+    return hypot((r->subject.x - 0.5) * w, (r->subject.y - 0.5) * h) / hypot(w, h);
+}
+
+static int centre_nearer(const coach_config *cfg, const coach_result *r)
+{
+    return cfg->profile == COACH_PROFILE_PRODUCT && r->has_subject &&
+           !(centre_distance(r) >= r->placement);
 }
 
 /* The two guide lines (fractions of the height) of the chosen grid. */
@@ -124,13 +207,7 @@ void coach_score_terms(const coach_config *cfg, int have_prev, coach_result *r)
     on[T_HIGHLIGHTS] = isfinite(r->clip_high);
     on[T_SHADOWS] = isfinite(r->clip_low);
     if (isfinite(r->sharpness) && r->sharpness >= 0) {
-        /* A smooth backdrop or sky lowers the whole-frame variance without
-         * anything being out of focus: judge by the sharper of the frame
-         * and the subject's box when a subject was found. */
-        double sh = r->sharpness;
-        if (r->has_subject_focus && isfinite(r->subject_focus) && r->subject_focus > 1)
-            sh *= r->subject_focus;
-        v[T_SHARPNESS] = sh / (sh + SHARP_HALF);
+        v[T_SHARPNESS] = fmin(sharp_floor(r), sharp_rel(r));
         on[T_SHARPNESS] = 1;
     }
     if (isfinite(r->colourfulness)) {
@@ -152,7 +229,8 @@ void coach_score_terms(const coach_config *cfg, int have_prev, coach_result *r)
     }
     if (r->has_subject) {
         if (isfinite(r->placement)) {
-            v[T_PLACEMENT] = 1 - clamp01(r->placement / PLACEMENT_SPAN);
+            double d = centre_nearer(cfg, r) ? centre_distance(r) : r->placement;
+            v[T_PLACEMENT] = 1 - clamp01((d - PLACEMENT_OK) / PLACEMENT_SPAN);
             on[T_PLACEMENT] = 1;
         }
         if (isfinite(r->balance_lr) && isfinite(r->balance_tb)) {
@@ -190,6 +268,8 @@ void coach_score_terms(const coach_config *cfg, int have_prev, coach_result *r)
         coach_term *t = &r->terms[r->nterms++];
         t->name = term_info[i].name;
         t->label = term_info[i].label;
+        if (i == T_PLACEMENT && p == COACH_PROFILE_PRODUCT)
+            t->label = "Subject centred or on a power point";
         t->value = v[i];
         t->weight = weights[p][i];
         t->contribution = 100 * t->weight * t->value / wsum;
@@ -215,7 +295,9 @@ void coach_score_reset(coach_score_state *s)
 void coach_score_update(coach_score_state *s, const coach_config *cfg, double t, coach_result *r)
 {
     if (!s->have || !(t >= s->t_last)) {
+        double peak = s->sharp_peak; /* set for this frame already */
         coach_score_reset(s);
+        s->sharp_peak = peak;
         s->score = r->score_raw;
     } else {
         s->score = coach_smooth_step(s->score, r->score_raw, t - s->t_last, cfg->smooth_tau_s);
@@ -287,7 +369,9 @@ static void hint_text(int id, const coach_config *cfg, const coach_result *r, co
         stops(b, r->clip_low > 0.05 ? 1.0 : 2.0 / 3);
         break;
     case T_SHARPNESS:
-        coach_sb_str(b, "Refocus or hold still: the frame looks soft");
+        coach_sb_str(b, sharp_rel(r) < sharp_floor(r)
+                            ? "Refocus or hold still: softer than a moment ago"
+                            : "Refocus or hold still: the frame looks soft");
         break;
     case T_COLOUR:
         coach_sb_str(b, "Look for stronger colour: the scene is ");
@@ -313,6 +397,10 @@ static void hint_text(int id, const coach_config *cfg, const coach_result *r, co
         break;
     }
     case T_PLACEMENT:
+        if (centre_nearer(cfg, r)) {
+            coach_sb_str(b, "Centre the product in the frame");
+            break;
+        }
         coach_sb_str(b, "Move the subject toward the ");
         coach_sb_str(b, point_names[r->placement_point & 3]);
         coach_sb_str(b, cfg->grid == COACH_GRID_PHI ? " phi point" : " third");
@@ -366,10 +454,15 @@ static int term_id(const char *name)
 
 void coach_score_hints(const coach_config *cfg, coach_result *r)
 {
-    /* Worst first: rank by the points a term loses, weight * (1 - value). */
+    /* Worst first: rank by the points a term loses, weight * (1 - value);
+     * only terms that lose a meaningful share of the 100 get advice. */
     int order[COACH_MAX_TERMS], n = 0;
+    double wsum = 0;
     for (int i = 0; i < r->nterms; i++)
-        if (r->terms[i].value < HINT_BELOW)
+        wsum += r->terms[i].weight;
+    for (int i = 0; i < r->nterms; i++)
+        if (r->terms[i].value < HINT_BELOW &&
+            100 * r->terms[i].weight * (1 - r->terms[i].value) >= HINT_MIN_POINTS * wsum)
             order[n++] = i;
     for (int i = 1; i < n; i++) {
         int k = order[i], j = i;

@@ -674,6 +674,179 @@ static void test_score_hints_worst_first(void **state)
     assert_non_null(strstr(r.hints[0], "Highlights are clipping: try about -1.3 stops"));
 }
 
+/* The value of the named term, or -1 when it does not take part. */
+static double a_term(const coach_result *r, const char *name)
+{
+    for (int i = 0; i < r->nterms; i++)
+        if (strcmp(r->terms[i].name, name) == 0)
+            return r->terms[i].value;
+    return -1;
+}
+
+static int a_has_hint(const coach_result *r, const char *part)
+{
+    for (int i = 0; i < r->nhints; i++)
+        if (strstr(r->hints[i], part))
+            return 1;
+    return 0;
+}
+
+/* A hand-made result: w x h frame, a centred subject, everything else
+ * unremarkable (sharp, colourful, exposed at ev). */
+static void a_result_centred(coach_result *r, int w, int h, double ev, double colour)
+{
+    memset(r, 0, sizeof(*r));
+    r->width = w;
+    r->height = h;
+    r->exposure_ev = ev;
+    r->sharpness = 300;
+    r->colourfulness = colour;
+    r->has_subject = 1;
+    r->subject = (coach_box){ 0.5, 0.5, 0.2, 0.4 };
+}
+
+/* Renders one demo frame at time t with the blur pinned to sigma (full-res
+ * pixels) and analyses it. */
+static void a_demo_blur(cap_source *s, coach_analyzer *a, uint8_t *buf, int w, int h, double t,
+                        double sigma, coach_result *r)
+{
+    cap_demo_pin pin = { .exposure_ev = NAN, .blur_sigma = sigma, .horizon_deg = NAN };
+    assert_int_equal(cap_demo_set_pin(s, &pin), 0);
+    cap_truth tr;
+    assert_int_equal(cap_demo_render(s, t, buf, w * 4, &tr), 0);
+    assert_float_equal(tr.blur_sigma, sigma, 1e-9);
+    coach_frame f = { .data = buf, .w = w, .h = h, .stride = w * 4, .format = COACH_FMT_XRGB8888 };
+    assert_int_equal(coach_analyze(a, &f, t, r), 0);
+}
+
+/* The sharpness term follows the demo's ground-truth blur: high while the
+ * Gaussian blur is under half a pixel (invisible at 100 %: the pixel grid
+ * itself blurs that much; common practice), clearly low from 2 px on.  Live
+ * it is judged against the scene's recent best; a still (fresh analyzer)
+ * through the lenient absolute floor, which passes the sharp tabletop
+ * shot on its smooth backdrop and fails the plainly blurred harbour. */
+static void test_score_sharpness_follows_demo_blur(void **state)
+{
+    (void)state;
+    const int w = 960, h = 540;
+    uint8_t *buf = malloc((size_t)w * h * 4);
+    assert_non_null(buf);
+    char err[256];
+    cap_source_opts o = { .w = w, .h = h, .seed = 5 };
+    cap_source *s = cap_source_open("demo", &o, err, sizeof(err));
+    assert_non_null(s);
+    coach_analyzer *a = coach_create(NULL);
+    assert_non_null(a);
+    coach_result r;
+    double t = 1.0;
+    static const double sharp[] = { 0, 0, 0, 0.25, 0.4, 0.5, 0.3, 0 };
+    for (size_t i = 0; i < sizeof(sharp) / sizeof(sharp[0]); i++, t += 1.0 / 15) {
+        a_demo_blur(s, a, buf, w, h, t, sharp[i], &r);
+        assert_true(r.sharpness_ref >= r.sharpness);
+        assert_true(a_term(&r, "sharpness") >= 0.8);
+        assert_false(a_has_hint(&r, "Refocus"));
+    }
+    static const double soft[] = { 2.0, 2.5, 3.0, 4.0 };
+    for (size_t i = 0; i < sizeof(soft) / sizeof(soft[0]); i++, t += 1.0 / 15) {
+        a_demo_blur(s, a, buf, w, h, t, soft[i], &r);
+        assert_true(a_term(&r, "sharpness") <= 0.3);
+    }
+    /* forgetting the scene forgets its best: the soft frame alone is then
+     * judged by the floor, which still finds it soft */
+    coach_reset(a);
+    a_demo_blur(s, a, buf, w, h, t, 3.0, &r);
+    assert_float_equal(r.sharpness_ref, r.sharpness, 1e-12);
+    assert_true(a_term(&r, "sharpness") <= 0.5);
+    coach_destroy(a);
+    cap_source_destroy(s);
+
+    /* stills: the sharp product shot passes, with no advice to refocus */
+    s = cap_source_open("demo:tabletop", &o, err, sizeof(err));
+    assert_non_null(s);
+    coach_config cfg;
+    coach_config_default(&cfg);
+    cfg.profile = COACH_PROFILE_PRODUCT;
+    a = coach_create(&cfg);
+    assert_non_null(a);
+    a_demo_blur(s, a, buf, w, h, 2.0, 0.0, &r);
+    assert_true(a_term(&r, "sharpness") >= 0.9);
+    assert_false(a_has_hint(&r, "Refocus"));
+    coach_destroy(a);
+    cap_source_destroy(s);
+    free(buf);
+}
+
+/* Placement by profile (common practice): a catalogue product is commonly
+ * centred on its seamless backdrop, so in the product profile the centre
+ * is as good a place as a power point; a portrait keeps the thirds (eyes
+ * and head on the upper third).  Distances are fractions of the diagonal,
+ * the centre of a 16:9 frame lying 0.167 from each thirds point. */
+static void test_score_product_centre_portrait_thirds(void **state)
+{
+    (void)state;
+    coach_config cfg;
+    coach_config_default(&cfg);
+    coach_result r;
+    a_result_centred(&r, 1920, 1080, 0, 50);
+    r.placement = hypot(1920 / 6.0, 1080 / 6.0) / hypot(1920, 1080);
+    r.placement_point = 0; /* upper-left, one of four at the same distance */
+
+    cfg.profile = COACH_PROFILE_PRODUCT;
+    coach_score_terms(&cfg, 0, &r);
+    coach_score_hints(&cfg, &r);
+    assert_float_equal(a_term(&r, "placement"), 1.0, 1e-9);
+    assert_false(a_has_hint(&r, "subject toward"));
+    assert_false(a_has_hint(&r, "Centre the product"));
+
+    cfg.profile = COACH_PROFILE_PORTRAIT;
+    coach_score_terms(&cfg, 0, &r);
+    coach_score_hints(&cfg, &r);
+    assert_true(a_term(&r, "placement") < 0.3);
+    assert_true(a_has_hint(&r, "Move the subject toward the upper-left third"));
+
+    /* a product off-centre, nearer the centre than any third: centre it */
+    r.subject.x = 0.40;
+    r.subject.y = 0.62;
+    r.placement = hypot((0.40 - 1 / 3.0) * 1920, (0.62 - 2 / 3.0) * 1080) / hypot(1920, 1080) + 0.1;
+    cfg.profile = COACH_PROFILE_PRODUCT;
+    coach_score_terms(&cfg, 0, &r);
+    coach_score_hints(&cfg, &r);
+    assert_true(a_term(&r, "placement") < 0.75);
+    assert_true(a_has_hint(&r, "Centre the product"));
+}
+
+/* Advice only for what costs points: a neutral product (Hasler & Suesstrunk
+ * 2003, Table 2: M below 15 is "not colourful") loses under 3 of 100
+ * points on the light colour term of the product profile and gets no
+ * colour hint; the same frame judged as a landscape, where colour weighs
+ * more, does. */
+static void test_score_hints_need_points(void **state)
+{
+    (void)state;
+    coach_config cfg;
+    coach_config_default(&cfg);
+    coach_result r;
+    a_result_centred(&r, 1280, 720, 0.5, 5);
+    r.has_tilt = 1;
+    r.tilt_confidence = 1;
+    r.placement = 0.167;
+    r.has_subject_focus = 1;
+    r.subject_focus = 2;
+    r.has_motion = 1;
+
+    cfg.profile = COACH_PROFILE_PRODUCT;
+    coach_score_terms(&cfg, 1, &r);
+    coach_score_hints(&cfg, &r);
+    assert_float_equal(a_term(&r, "colour"), 0.0, 1e-9);
+    assert_int_equal(r.nhints, 0);
+
+    cfg.profile = COACH_PROFILE_LANDSCAPE;
+    r.exposure_ev = 0;
+    coach_score_terms(&cfg, 1, &r);
+    coach_score_hints(&cfg, &r);
+    assert_true(a_has_hint(&r, "Look for stronger colour: the scene is not colourful"));
+}
+
 /* ---- JSON ---- */
 
 /* A small JSON (RFC 8259) syntax checker for the test: returns the end of
@@ -1513,6 +1686,9 @@ int main(void)
         cmocka_unit_test(test_score_smoothing_step_response),
         cmocka_unit_test(test_ready_hysteresis_no_flicker),
         cmocka_unit_test(test_score_hints_worst_first),
+        cmocka_unit_test(test_score_sharpness_follows_demo_blur),
+        cmocka_unit_test(test_score_product_centre_portrait_thirds),
+        cmocka_unit_test(test_score_hints_need_points),
         cmocka_unit_test(test_json_structure_no_nan),
         cmocka_unit_test(test_alloc_steady_state_zero),
         /* ---- section B ---- */
