@@ -135,6 +135,14 @@ void coach_reset(coach_analyzer *a)
     coach_score_reset(&a->score);
 }
 
+void coach_set_profile(coach_analyzer *a, coach_profile p)
+{
+    /* Weights and targets are read from cfg on every frame; nothing else
+     * depends on the profile, so the temporal state stays valid. */
+    if (a && p >= 0 && p < COACH_PROFILE_COUNT)
+        a->cfg.profile = p;
+}
+
 int coach_analyze(coach_analyzer *a, const coach_frame *f, double t, coach_result *out)
 {
     if (!a || !out || !isfinite(t))

@@ -173,6 +173,12 @@ int coach_analyze(coach_analyzer *a, const coach_frame *f, double t, coach_resul
 /* Forgets temporal state (smoothing, ready, motion), e.g. after a source change. */
 void coach_reset(coach_analyzer *a);
 
+/* Switches the scoring profile (weights, which terms apply, targets) from
+ * the next coach_analyze() on; temporal state (smoothing, ready, motion,
+ * the sharpness reference) is kept, so the meter glides to the new score
+ * instead of jumping.  An unknown profile is ignored. */
+void coach_set_profile(coach_analyzer *a, coach_profile p);
+
 /* Writes the result as one JSON object (no newline) into buf.  `file` is
  * added as "file" when not NULL.  Returns the length it needed (like
  * snprintf): a return >= n means the output was truncated. */

@@ -516,7 +516,7 @@ static int run_window(app_run *r)
                 else if (a == OVL_ACT_NEXT_PROFILE) {
                     r->o->profile = (coach_profile)((r->o->profile + 1) % COACH_PROFILE_COUNT);
                     st.profile = r->o->profile;
-                    /* TODO(lead): apply the profile to the analyzer */
+                    coach_set_profile(r->an, r->o->profile);
                 }
                 else if (a == OVL_ACT_SNAPSHOT)
                     r->shots.pending = 1; /* h5: saved with the next frame */

@@ -847,6 +847,58 @@ static void test_score_hints_need_points(void **state)
     assert_true(a_has_hint(&r, "Look for stronger colour: the scene is not colourful"));
 }
 
+/* Switching the profile at run time (the window's profile key): from the
+ * next frame on the terms are those of the new profile, exactly as an
+ * analyzer made with it scores the same frames, while the smoothed score
+ * glides from where it was by the first-order low-pass step (the exact
+ * response of dy/dt = (x - y) / tau) instead of restarting. */
+static void test_set_profile_keeps_state(void **state)
+{
+    (void)state;
+    const int w = 640, h = 480;
+    uint8_t *buf = malloc((size_t)w * h * 4);
+    assert_non_null(buf);
+    char err[256];
+    cap_source_opts o = { .w = w, .h = h, .seed = 2 };
+    cap_source *s = cap_source_open("demo:tabletop", &o, err, sizeof(err));
+    assert_non_null(s);
+    coach_config cfg;
+    coach_config_default(&cfg);
+    coach_analyzer *a = coach_create(&cfg); /* landscape */
+    cfg.profile = COACH_PROFILE_PRODUCT;
+    coach_analyzer *ref = coach_create(&cfg);
+    assert_non_null(a);
+    assert_non_null(ref);
+    coach_result r, q;
+    double prev = 0, t = 0;
+    for (int i = 0; i < 6; i++, t += 0.1) {
+        a_demo_blur(s, a, buf, w, h, t, 0.0, &r);
+        a_demo_blur(s, ref, buf, w, h, t, 0.0, &q);
+        prev = r.score;
+    }
+    assert_true(a_term(&r, "placement") >= 0 && strcmp(r.terms[0].name, "exposure") == 0);
+    coach_set_profile(a, COACH_PROFILE_PRODUCT);
+    a_demo_blur(s, a, buf, w, h, t, 0.0, &r);
+    a_demo_blur(s, ref, buf, w, h, t, 0.0, &q);
+    assert_int_equal(r.nterms, q.nterms);
+    for (int i = 0; i < r.nterms; i++) {
+        assert_string_equal(r.terms[i].name, q.terms[i].name);
+        assert_float_equal(r.terms[i].weight, q.terms[i].weight, 0);
+        assert_float_equal(r.terms[i].contribution, q.terms[i].contribution, 1e-9);
+    }
+    assert_float_equal(r.score_raw, q.score_raw, 1e-9);
+    assert_float_equal(r.score, coach_smooth_step(prev, r.score_raw, 0.1, cfg.smooth_tau_s), 1e-6);
+    /* an unknown profile changes nothing */
+    coach_set_profile(a, COACH_PROFILE_COUNT);
+    coach_set_profile(NULL, COACH_PROFILE_PORTRAIT);
+    a_demo_blur(s, a, buf, w, h, t + 0.1, 0.0, &r);
+    assert_float_equal(r.terms[0].weight, q.terms[0].weight, 0);
+    coach_destroy(a);
+    coach_destroy(ref);
+    cap_source_destroy(s);
+    free(buf);
+}
+
 /* ---- JSON ---- */
 
 /* A small JSON (RFC 8259) syntax checker for the test: returns the end of
@@ -1689,6 +1741,7 @@ int main(void)
         cmocka_unit_test(test_score_sharpness_follows_demo_blur),
         cmocka_unit_test(test_score_product_centre_portrait_thirds),
         cmocka_unit_test(test_score_hints_need_points),
+        cmocka_unit_test(test_set_profile_keeps_state),
         cmocka_unit_test(test_json_structure_no_nan),
         cmocka_unit_test(test_alloc_steady_state_zero),
         /* ---- section B ---- */
