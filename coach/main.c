@@ -495,6 +495,9 @@ static int run_window(app_run *r)
     int have_result = 0, rc = 0;
     double fps_t0 = now_s();
     long fps_n = 0;
+    /* whole-run figures for the --stats summary */
+    double run_t0 = 0, lat_sum = 0, lat_max = 0;
+    long run_n = 0;
     while (!g_stop) {
         SDL_Event e;
         if (!SDL_WaitEventTimeout(&e, 250)) {
@@ -549,6 +552,10 @@ static int run_window(app_run *r)
             cap_mailbox_release(r->mb);
             fps_n++;
             double t = now_s();
+            if (!run_n++)
+                run_t0 = t;
+            lat_sum += st.latency_ms;
+            lat_max = st.latency_ms > lat_max ? st.latency_ms : lat_max;
             if (t - fps_t0 >= 1.0) {
                 st.fps_shown = (double)fps_n / (t - fps_t0);
                 fps_t0 = t;
@@ -559,6 +566,14 @@ static int run_window(app_run *r)
         } else if (ev && have_result) {
             ovl_render(win, NULL, &r->res, &st);
         }
+    }
+    if (r->o->stats && run_n > 1) {
+        cap_stats cs;
+        cap_mailbox_stats(r->mb, &cs);
+        fprintf(stderr, "vfcoach: %ld frames shown and analysed in %.1f s (%.1f fps), %" PRIu64
+                " dropped of %" PRIu64 " captured, capture to screen %.1f ms mean, %.1f ms max\n",
+                run_n, now_s() - run_t0, (double)(run_n - 1) / (now_s() - run_t0), cs.dropped,
+                cs.published, lat_sum / (double)run_n, lat_max);
     }
     cap_thread_destroy(r->th);
     r->th = NULL;
