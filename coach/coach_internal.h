@@ -72,6 +72,8 @@ typedef struct coach_score_state {
     int above;             /* score has been >= ready_enter since above_t   */
     double above_t;
     double sharp_peak;     /* decaying maximum of the frame sharpness       */
+    uint32_t prev_hist[256]; /* luma histogram of the previous frame: a cut
+                                to another scene restarts sharp_peak        */
 } coach_score_state;
 
 void coach_score_reset(coach_score_state *s);

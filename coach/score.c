@@ -98,6 +98,11 @@ static const double ev_target[COACH_PROFILE_COUNT] = { 0.0, 0.0, 0.5 };
 #define SHARP_REL_HI 0.5       /* ... scoring 1: a drop to half goes unseen  */
 #define SHARP_FLOOR_LO 4.0     /* absolute variance scoring 0 (plainly blurred) */
 #define SHARP_FLOOR_HI 40.0    /* ... scoring 1 (a sharp smooth-backdrop shot) */
+#define SCENE_CUT 0.6          /* luma histogram intersection with the previous
+                                  frame below which the view is a new scene
+                                  (a cut, the next still of a folder): blur
+                                  alone keeps it above 0.8 on the demo scenes
+                                  even at sigma 6 px, the two scenes share 0.4 */
 #define SHARP_PEAK_TAU 6.0     /* s: the recent best decays with this constant,
                                   spanning the soft phase of a focus pull yet
                                   forgetting a more textured view within
@@ -161,7 +166,18 @@ void coach_score_sharpness_ref(coach_score_state *s, double t, coach_result *r)
         r->sharpness_ref = 0;
         return;
     }
-    if (!s->have || !(t >= s->t_last) || !(s->sharp_peak > 0))
+    /* A cut to another scene (histogram intersection, the classic
+     * shot-boundary measure) must not be judged against the old one. */
+    int cut = 0;
+    double n = (double)r->width * r->height;
+    if (s->have && n > 0) {
+        uint64_t common = 0;
+        for (int v = 0; v < 256; v++)
+            common += r->hist[v] < s->prev_hist[v] ? r->hist[v] : s->prev_hist[v];
+        cut = (double)common < SCENE_CUT * n;
+    }
+    memcpy(s->prev_hist, r->hist, sizeof(s->prev_hist));
+    if (cut || !s->have || !(t >= s->t_last) || !(s->sharp_peak > 0))
         s->sharp_peak = sh;
     else
         s->sharp_peak = fmax(sh, s->sharp_peak * exp(-(t - s->t_last) / SHARP_PEAK_TAU));
@@ -295,9 +311,10 @@ void coach_score_reset(coach_score_state *s)
 void coach_score_update(coach_score_state *s, const coach_config *cfg, double t, coach_result *r)
 {
     if (!s->have || !(t >= s->t_last)) {
-        double peak = s->sharp_peak; /* set for this frame already */
-        coach_score_reset(s);
-        s->sharp_peak = peak;
+        /* a new sequence: the smoothing and the cue start over (the
+         * sharpness reference was set for this frame already) */
+        s->ready = s->above = 0;
+        s->above_t = 0;
         s->score = r->score_raw;
     } else {
         s->score = coach_smooth_step(s->score, r->score_raw, t - s->t_last, cfg->smooth_tau_s);

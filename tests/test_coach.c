@@ -771,6 +771,19 @@ static void test_score_sharpness_follows_demo_blur(void **state)
     a_demo_blur(s, a, buf, w, h, 2.0, 0.0, &r);
     assert_true(a_term(&r, "sharpness") >= 0.9);
     assert_false(a_has_hint(&r, "Refocus"));
+
+    /* a cut from the textured harbour to the smooth tabletop (the next
+     * still of a folder) is a new scene, not a loss of focus: the tabletop
+     * at half a pixel of blur has a fifth of the harbour's variance */
+    cap_source *s2 = cap_source_open("demo", &o, err, sizeof(err));
+    assert_non_null(s2);
+    a_demo_blur(s2, a, buf, w, h, 3.0, 0.0, &r);
+    double harbour = r.sharpness;
+    a_demo_blur(s, a, buf, w, h, 3.0 + 1.0 / 15, 0.5, &r);
+    assert_true(r.sharpness < 0.3 * harbour);
+    assert_float_equal(r.sharpness_ref, r.sharpness, 1e-12);
+    assert_true(a_term(&r, "sharpness") >= 0.8);
+    cap_source_destroy(s2);
     coach_destroy(a);
     cap_source_destroy(s);
     free(buf);
