@@ -56,8 +56,10 @@ CFLAGS_ALL := -std=c11 -D_GNU_SOURCE -I. $(WARN) $(OPT_$(VARIANT)) $(PKG_CFLAGS)
 LDFLAGS_ALL := $(OPT_$(VARIANT)) $(LDFLAGS)
 LIBS_ALL := $(PKG_LIBS) -lpthread -lm
 
-# BUILDDIR lets parallel work trees of builds coexist (e.g. BUILDDIR=build/mine).
-BUILDDIR ?= build/$(VARIANT)
+# Each variant builds in $(BUILDROOT)/<variant>.  BUILDROOT=build/mine keeps
+# a second set of builds apart (parallel work in one tree).
+BUILDROOT ?= build
+BUILDDIR ?= $(BUILDROOT)/$(VARIANT)
 B := $(BUILDDIR)
 
 # coach/ holds the pure library (coach_*) and the program (app_*.c, main.c);
@@ -139,14 +141,14 @@ purity:
 	echo "purity: coach/ library is pure computation"
 
 asan:
-	@$(MAKE) --no-print-directory VARIANT=asan BUILDDIR=$(subst $(VARIANT),asan,$(B)) check-unit
+	@$(MAKE) --no-print-directory VARIANT=asan BUILDDIR=$(BUILDROOT)/asan check-unit
 tsan:
-	@$(MAKE) --no-print-directory VARIANT=tsan BUILDDIR=$(subst $(VARIANT),tsan,$(B)) check-unit
+	@$(MAKE) --no-print-directory VARIANT=tsan BUILDDIR=$(BUILDROOT)/tsan check-unit
 
 bench: $(NEED_DEPS)
-	@$(MAKE) --no-print-directory VARIANT=bench BUILDDIR=$(subst $(VARIANT),bench,$(B)) all
-	$(subst $(VARIANT),bench,$(B))/vfcoach bench $(BENCH_ARGS)
-	@[ ! -f tests/bench_reference.py ] || $(PYTHON) tests/bench_reference.py $(subst $(VARIANT),bench,$(B))/vfcoach
+	@$(MAKE) --no-print-directory VARIANT=bench BUILDDIR=$(BUILDROOT)/bench all
+	$(BUILDROOT)/bench/vfcoach bench $(BENCH_ARGS)
+	@[ ! -f tests/bench_reference.py ] || $(PYTHON) tests/bench_reference.py $(BUILDROOT)/bench/vfcoach
 
 check-vm: $(NEED_DEPS)
 	@$(MAKE) --no-print-directory all

@@ -34,6 +34,9 @@ typedef struct app_opts {
     const char *screenshot;  /* --screenshot FILE (hidden): save the window after --frames N (else 30), quit */
 } app_opts;
 
+/* Parses "WxH" within COACH_MIN_DIM..COACH_MAX_DIM; 0 or -EINVAL. */
+int app_parse_size(const char *s, int *w, int *h);
+
 /* Subcommands: argv[0] is the subcommand name. Return the exit status. */
 int app_analyze_main(int argc, char **argv);
 int app_bench_main(int argc, char **argv);

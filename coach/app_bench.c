@@ -243,22 +243,6 @@ out:
     return rc;
 }
 
-static int parse_size(const char *s, int *w, int *h)
-{
-    char *end;
-    long a = strtol(s, &end, 10);
-    if (end == s || (*end != 'x' && *end != 'X'))
-        return -EINVAL;
-    const char *s2 = end + 1;
-    long b = strtol(s2, &end, 10);
-    if (end == s2 || *end || a < COACH_MIN_DIM || b < COACH_MIN_DIM || a > COACH_MAX_DIM ||
-        b > COACH_MAX_DIM)
-        return -EINVAL;
-    *w = (int)a;
-    *h = (int)b;
-    return 0;
-}
-
 int app_bench_main(int argc, char **argv)
 {
     static const int defaults[][2] = { { 1280, 720 }, { 1920, 1080 }, { 3840, 2160 } };
@@ -274,7 +258,7 @@ int app_bench_main(int argc, char **argv)
                 fprintf(stderr, "vfcoach bench: at most 8 --size options\n");
                 return 2;
             }
-            if (parse_size(argv[++i], &sizes[nsizes][0], &sizes[nsizes][1])) {
+            if (app_parse_size(argv[++i], &sizes[nsizes][0], &sizes[nsizes][1])) {
                 fprintf(stderr, "vfcoach bench: --size '%s': expected WxH, %d..%d each\n",
                         argv[i], COACH_MIN_DIM, COACH_MAX_DIM);
                 return 2;

@@ -364,7 +364,7 @@ static int snap_write(const char *dir, SDL_Surface *s, const coach_frame *f, con
 {
     int rc = make_dirs(dir);
     if (rc) {
-        snprintf(err, errlen, "snapshot folder '%s': %s", dir, strerror(-rc));
+        snprintf(err, errlen, "snapshot folder '%.900s': %s", dir, strerror(-rc));
         return rc;
     }
     char when[48], stamp[40];

@@ -16,6 +16,10 @@
 #include <stddef.h>
 #include <stdint.h>
 
+/* Frame sides coach_analyze() accepts, pixels. */
+#define COACH_MIN_DIM 8         /* frames smaller than this are refused       */
+#define COACH_MAX_DIM 16384     /* keeps every fixed-width accumulator exact  */
+
 /* Pixel layouts a frame view may carry, named by their byte order in memory. */
 typedef enum coach_format {
     COACH_FMT_NONE = 0,

@@ -35,8 +35,6 @@ void coach_compose_run(coach_compose *c, const coach_aimg *img, int full_w, int 
 /* ---- tone pass (tone.c) ------------------------------------------------ */
 
 #define COACH_AIMG_TARGET_W 320 /* analysis width: scale = max(1, w / this)  */
-#define COACH_MIN_DIM 8         /* frames smaller than this are refused       */
-#define COACH_MAX_DIM 16384     /* keeps every fixed-width accumulator exact  */
 #define COACH_CLIP_HIGH 250     /* luma >= this counts as clipped highlight   */
 #define COACH_CLIP_LOW 5        /* luma <= this counts as clipped shadow      */
 

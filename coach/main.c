@@ -82,7 +82,9 @@ static void usage(FILE *f)
         "  --help, --version\n");
 }
 
-static int parse_size(const char *s, int *w, int *h)
+/* "WxH" with both sides within what the analyzer takes; 0 or -EINVAL.
+ * Shared by the options here and `vfcoach bench --size`. */
+int app_parse_size(const char *s, int *w, int *h)
 {
     char *end;
     long a = strtol(s, &end, 10);
@@ -90,7 +92,8 @@ static int parse_size(const char *s, int *w, int *h)
         return -EINVAL;
     const char *p = end + 1;
     long b = strtol(p, &end, 10);
-    if (end == p || *end || a < 16 || b < 16 || a > 16384 || b > 16384)
+    if (end == p || *end || a < COACH_MIN_DIM || b < COACH_MIN_DIM || a > COACH_MAX_DIM ||
+        b > COACH_MAX_DIM)
         return -EINVAL;
     *w = (int)a;
     *h = (int)b;
@@ -163,7 +166,7 @@ static int parse_opts(int argc, char **argv, app_opts *o)
         case OPT_DEVICE: o->device = optarg; break;
         case OPT_LIST: o->list = 1; break;
         case OPT_SIZE:
-            if (parse_size(optarg, &o->w, &o->h)) {
+            if (app_parse_size(optarg, &o->w, &o->h)) {
                 fprintf(stderr, "vfcoach: --size '%s': expected WIDTHxHEIGHT, e.g. 1280x720\n", optarg);
                 return -EINVAL;
             }
