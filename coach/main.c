@@ -82,24 +82,6 @@ static void usage(FILE *f)
         "  --help, --version\n");
 }
 
-/* "WxH" with both sides within what the analyzer takes; 0 or -EINVAL.
- * Shared by the options here and `vfcoach bench --size`. */
-int app_parse_size(const char *s, int *w, int *h)
-{
-    char *end;
-    long a = strtol(s, &end, 10);
-    if (end == s || (*end != 'x' && *end != 'X'))
-        return -EINVAL;
-    const char *p = end + 1;
-    long b = strtol(p, &end, 10);
-    if (end == p || *end || a < COACH_MIN_DIM || b < COACH_MIN_DIM || a > COACH_MAX_DIM ||
-        b > COACH_MAX_DIM)
-        return -EINVAL;
-    *w = (int)a;
-    *h = (int)b;
-    return 0;
-}
-
 static int parse_long(const char *s, long lo, long hi, long *out)
 {
     char *end;
