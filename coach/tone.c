@@ -540,6 +540,47 @@ SCALAR static void hist_lin_row(coach_tone *t, const uint8_t *restrict y, const 
     s->nlin += (uint64_t)(w - x0 + 3) / 4;
 }
 
+/* The XRGB8888 row: the exposure samples ride in the histogram loop, two
+ * per 8 pixels.  The histogram is bound by its stores (one per pixel), the
+ * LUT sums by loads, so together they cost little more than the histogram
+ * alone did.  Each sampled pixel is read as one word, its bytes taken by
+ * shifts.  Same samples, same sums as hist_lin_row. */
+SCALAR static void hist_lin_xrgb(coach_tone *t, const uint8_t *restrict y,
+                                 const uint8_t *restrict p, int w, int row, tone_sums *s)
+{
+    uint32_t(*H)[256] = t->hist8;
+    const uint32_t *lr = t->lin[0], *lgr = t->lin[1], *lb = t->lin[2];
+    const int x0 = (row >> 1) & 3;
+    uint64_t acc = 0;
+    int x = 0;
+    for (; x + 8 <= w; x += 8) {
+        uint64_t v;
+        uint32_t a, b;
+        memcpy(&v, y + x, 8);
+        memcpy(&a, p + 4 * (size_t)(x + x0), 4);
+        memcpy(&b, p + 4 * (size_t)(x + x0 + 4), 4);
+        H[0][v & 255]++;
+        H[1][(v >> 8) & 255]++;
+        H[2][(v >> 16) & 255]++;
+        H[3][(v >> 24) & 255]++;
+        acc += (uint64_t)lr[(a >> SH_R) & 255u] + lgr[(a >> SH_G) & 255u] + lb[(a >> SH_B) & 255u];
+        H[4][(v >> 32) & 255]++;
+        H[5][(v >> 40) & 255]++;
+        H[6][(v >> 48) & 255]++;
+        H[7][v >> 56]++;
+        acc += (uint64_t)lr[(b >> SH_R) & 255u] + lgr[(b >> SH_G) & 255u] + lb[(b >> SH_B) & 255u];
+    }
+    for (int i = x; i < w; i++)
+        H[0][y[i]]++;
+    for (x += x0; x < w; x += 4) {
+        uint32_t a;
+        memcpy(&a, p + 4 * (size_t)x, 4);
+        acc += (uint64_t)lr[(a >> SH_R) & 255u] + lgr[(a >> SH_G) & 255u] + lb[(a >> SH_B) & 255u];
+    }
+    s->lin += acc;
+    s->nlin += (uint64_t)(w - x0 + 3) / 4;
+}
+
 KBODY void colour_row_k(const uint8_t *restrict r, const uint8_t *restrict g,
                            const uint8_t *restrict b, int w, tone_sums *s)
 {
@@ -1015,7 +1056,7 @@ int coach_tone_run(coach_tone *t, const coach_frame *f, coach_result *out, coach
                     s.q_rg += (uint32_t)cs.qrg;
                     s.q_yb += (uint32_t)cs.qyb;
                 }
-                hist_lin_row(t, yr, p + 2, p + 1, p, 4, w, 0, y, &s);
+                hist_lin_xrgb(t, yr, p, w, y, &s);
             } else {
                 switch (f->format) {
                 case COACH_FMT_RGB24: t->k->rgb24(p, w, r, g, b, yr); break;
