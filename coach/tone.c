@@ -47,9 +47,13 @@
  * loops (tests/test_coach.c runs both).
  *
  * Where the time goes at 1080p on one core of the development machine
- * (perf, thread CPU time, ~3 ms in all): the XRGB row ~30 %, histogram and
- * exposure samples ~30 % (scalar by nature), the box-filter flush ~10 %,
- * the Laplacian ~10 %; one read of the frame alone costs ~0.4 ms. */
+ * (thread CPU time with one part left out at a time, ~2.3 ms in all): the
+ * histogram with the exposure samples riding in its loop ~0.8 ms, bound by
+ * its one store a pixel (4 or 16 sub-histograms, padded ones, byte loads:
+ * all the same speed); the XRGB row with the box-filter flush ~1 ms, of
+ * which one read of the frame alone is ~0.4 ms; the Laplacian ~0.4 ms.
+ * Counting the histogram inside the AVX2 XRGB loop was tried: slower
+ * (register pressure), so it stays a loop of its own. */
 #if defined(__GNUC__) && !defined(__clang__) && defined(__OPTIMIZE__)
 #pragma GCC optimize("O3")
 #endif
@@ -493,8 +497,8 @@ typedef struct tone_sums {
     uint64_t q_l;              /* sum of L^2                              */
 } tone_sums;
 
-/* The scalar part: histogram and the linear-luminance LUT sums, both bound
- * by loads.  The histogram takes every pixel (clip fractions are exact at
+/* The scalar part: histogram (bound by its stores) and the linear-luminance
+ * LUT sums (bound by loads), in one loop.  The histogram takes every pixel (clip fractions are exact at
  * full resolution).  The LUT sum takes every fourth pixel of every row, the
  * phase shifting by one column every two rows (x = (y/2) mod 4): three table
  * loads a pixel made it the most expensive step of the pass.  A sample of
@@ -504,38 +508,37 @@ typedef struct tone_sums {
  * shows; the shifting phase keeps one-pixel stripes in either direction and
  * checkerboards from aliasing. */
 SCALAR static void hist_lin_row(coach_tone *t, const uint8_t *restrict y, const uint8_t *restrict r,
-                         const uint8_t *restrict g, const uint8_t *restrict b, int step, int w,
-                         int grey, int row, tone_sums *s)
+                                const uint8_t *restrict g, const uint8_t *restrict b, int w,
+                                int grey, int row, tone_sums *s)
 {
+    /* The samples ride in the histogram loop, two per 8 pixels: the
+     * histogram is bound by its stores, the LUT sums by loads. */
     uint32_t(*H)[256] = t->hist8;
+    const uint32_t *lr = grey ? t->lin_grey : t->lin[0], *lgr = t->lin[1], *lb = t->lin[2];
+    const int x0 = (row >> 1) & 3;
+    uint64_t acc = 0;
     int x = 0;
     for (; x + 8 <= w; x += 8) {
         uint64_t v;
         memcpy(&v, y + x, 8);
+        const int i = x + x0, j = i + 4;
         H[0][v & 255]++;
         H[1][(v >> 8) & 255]++;
         H[2][(v >> 16) & 255]++;
         H[3][(v >> 24) & 255]++;
+        if (grey)
+            acc += (uint64_t)lr[y[i]] + lr[y[j]];
+        else
+            acc += (uint64_t)lr[r[i]] + lgr[g[i]] + lb[b[i]] + lr[r[j]] + lgr[g[j]] + lb[b[j]];
         H[4][(v >> 32) & 255]++;
         H[5][(v >> 40) & 255]++;
         H[6][(v >> 48) & 255]++;
         H[7][v >> 56]++;
     }
-    for (; x < w; x++)
-        H[0][y[x]]++;
-    uint64_t acc = 0;
-    int x0 = (row >> 1) & 3;
-    if (grey) {
-        const uint32_t *lg = t->lin_grey;
-        for (x = x0; x < w; x += 4)
-            acc += lg[y[x]];
-    } else {
-        const uint32_t *lr = t->lin[0], *lgr = t->lin[1], *lb = t->lin[2];
-        for (x = x0; x < w; x += 4) {
-            size_t i = (size_t)x * step;
-            acc += (uint64_t)lr[r[i]] + lgr[g[i]] + lb[b[i]];
-        }
-    }
+    for (int i = x; i < w; i++)
+        H[0][y[i]]++;
+    for (x += x0; x < w; x += 4)
+        acc += grey ? (uint64_t)lr[y[x]] : (uint64_t)lr[r[x]] + lgr[g[x]] + lb[b[x]];
     s->lin += acc;
     s->nlin += (uint64_t)(w - x0 + 3) / 4;
 }
@@ -1070,7 +1073,7 @@ int coach_tone_run(coach_tone *t, const coach_frame *f, coach_result *out, coach
                     r = g = b = yr;
                     break;
                 }
-                hist_lin_row(t, yr, r, g, b, 1, w, grey, y, &s);
+                hist_lin_row(t, yr, r, g, b, w, grey, y, &s);
                 if (!grey)
                     t->k->colour(r, g, b, w, &s);
                 if (y < bh)
