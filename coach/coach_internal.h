@@ -115,6 +115,22 @@ int coach_fft_plan_init(coach_fft_plan *p, int n);
 void coach_fft2d(const coach_fft_plan *px, const coach_fft_plan *py, float *data, float *scratch,
                  int inverse);
 
+/* Two real w x h signals a and b transformed together as z = a + i b: reads
+ * their spectra A(u,v) = (Z(k) + conj Z(-k)) / 2 and B(u,v) = (Z(k) - conj
+ * Z(-k)) / 2i at one frequency of the transformed z (interleaved complex,
+ * row-major).  Shared by the saliency and the motion estimate. */
+static inline void coach_fft_split_pair(const float *z, int w, int h, int u, int v, float A[2],
+                                        float B[2])
+{
+    int k = v * w + u, km = ((h - v) % h) * w + (w - u) % w;
+    float zr = z[2 * k], zi = z[2 * k + 1];
+    float mr = z[2 * km], mi = z[2 * km + 1];
+    A[0] = 0.5f * (zr + mr);
+    A[1] = 0.5f * (zi - mi);
+    B[0] = 0.5f * (zi + mi);
+    B[1] = -0.5f * (zr - mr);
+}
+
 /* Level and horizon from straight lines (level.c).  Coordinates are
  * analysis pixels with pixel centres at integers. */
 typedef struct coach_level coach_level;

@@ -252,11 +252,10 @@ int coach_motion_run(coach_motion *m, const float *luma, int w, int h, const coa
             coach_fft2d(&m->px, &m->py, m->a, m->scratch, 0);
             for (int v = 0; v < MH; v++)
                 for (int u = 0; u < MW; u++) {
-                    int q = v * MW + u, qm = ((MH - v) % MH) * MW + (MW - u) % MW;
-                    float zr = m->a[2 * q], zi = m->a[2 * q + 1];
-                    float mr = m->a[2 * qm], mi = m->a[2 * qm + 1];
-                    float ar = 0.5f * (zr + mr), ai = 0.5f * (zi - mi);
-                    float br = 0.5f * (zi + mi), bi = 0.5f * (zr - mr); /* conj B */
+                    int q = v * MW + u;
+                    float A[2], B[2];
+                    coach_fft_split_pair(m->a, MW, MH, u, v, A, B);
+                    float ar = A[0], ai = A[1], br = B[0], bi = -B[1]; /* conj B */
                     float re = ar * br - ai * bi, im = ar * bi + ai * br;
                     float mag = sqrtf(re * re + im * im) + 1e-20f;
                     m->b[2 * q] = re / mag;

@@ -230,11 +230,10 @@ static void periodic_spectrum(coach_saliency *s)
     float *out = s->scratch;
     for (int q = 0; q < N; q++)
         for (int r = 0; r < N; r++) {
-            int k = q * N + r, km = ((N - q) % N) * N + (N - r) % N;
-            float zr = s->cx[2 * k], zi = s->cx[2 * k + 1];
-            float mr = s->cx[2 * km], mi = s->cx[2 * km + 1];
-            float ur = 0.5f * (zr + mr), ui = 0.5f * (zi - mi);
-            float vr = 0.5f * (zi + mi), vi = -0.5f * (zr - mr);
+            int k = q * N + r;
+            float U[2], V[2];
+            coach_fft_split_pair(s->cx, N, N, r, q, U, V);
+            float ur = U[0], ui = U[1], vr = V[0], vi = V[1];
             float den = s->cos2[q] + s->cos2[r] - 4.0f;
             if (k == 0) {
                 out[0] = ur;
