@@ -115,7 +115,9 @@ typedef struct coach_result {
     double exposure_ev;             /* log2(mean / 0.18), stops                */
     double clip_high;               /* fraction of pixels with luma >= 250     */
     double clip_low;                /* fraction of pixels with luma <= 5       */
-    uint32_t hist[256];             /* 8-bit luma histogram, full resolution   */
+    uint32_t hist[256];             /* 8-bit luma histogram of a fixed quarter
+                                       of the pixels (every row; see tone.c)   */
+    uint32_t hist_total;            /* pixels counted in hist                  */
     double colourfulness;           /* Hasler & Süsstrunk M, 8-bit sRGB units  */
     double sharpness;               /* variance of the 3x3 Laplacian of luma   */
     double sharpness_ref;           /* the best sharpness this scene showed

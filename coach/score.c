@@ -169,7 +169,7 @@ void coach_score_sharpness_ref(coach_score_state *s, double t, coach_result *r)
     /* A cut to another scene (histogram intersection, the classic
      * shot-boundary measure) must not be judged against the old one. */
     int cut = 0;
-    double n = (double)r->width * r->height;
+    double n = (double)r->hist_total;
     if (s->have && n > 0) {
         uint64_t common = 0;
         for (int v = 0; v < 256; v++)

@@ -139,7 +139,8 @@ static void test_luma_bt709_weights(void **state)
         coach_result r;
         assert_int_equal(a_analyze_once(&f, &r), 0);
         int want = (int)lround(255 * prim[i].wgt);
-        assert_int_equal(r.hist[want], 32 * 32); /* BT.709-6 3.2 */
+        assert_int_equal(r.hist_total, 32 * 32 / 4); /* a quarter, see tone.c */
+        assert_int_equal(r.hist[want], r.hist_total); /* BT.709-6 3.2 */
         free((void *)f.data);
     }
 }
@@ -304,9 +305,11 @@ static void test_exposure_whole_stops(void **state)
     }
 }
 
-/* Exposure is summed over a quarter of the pixels (see coach/tone.c); one-
- * pixel stripes in either direction and a checkerboard must still read the
- * mean of the two linear values (IEC 61966-2-1 decoding of codes 30, 220). */
+/* Exposure is summed over a sixteenth of the pixels and the histogram
+ * counts a quarter (see coach/tone.c); one-pixel stripes in either
+ * direction and a checkerboard must still read the mean of the two linear
+ * values (IEC 61966-2-1 decoding of codes 30, 220), and the histogram must
+ * hold the two codes in equal shares. */
 static void a_stripes(int x, int y, void *ctx, uint8_t c[3])
 {
     int kind = *(int *)ctx;
@@ -323,6 +326,8 @@ static void test_exposure_stripes_no_alias(void **state)
         coach_result r;
         assert_int_equal(a_analyze_once(&f, &r), 0);
         assert_float_equal(r.mean_luma, want, 0.01 * want);
+        assert_int_equal(r.hist[30], r.hist_total / 2);
+        assert_int_equal(r.hist[220], r.hist_total / 2);
         free((void *)f.data);
     }
 }
@@ -378,8 +383,9 @@ static void test_clip_fractions_known(void **state)
     coach_frame f = a_xrgb(100, 100, a_clip_pattern, NULL);
     coach_result r;
     assert_int_equal(a_analyze_once(&f, &r), 0);
-    assert_float_equal(r.clip_high, 0.05, 0.005); /* 500 of 10000 at >= 250 */
-    assert_float_equal(r.clip_low, 0.12, 0.005);  /* 1200 of 10000 at <= 5 */
+    /* exact: every pixel is counted, though the histogram is sampled */
+    assert_true(r.clip_high == 500.0 / 10000);  /* 500 of 10000 at >= 250 */
+    assert_true(r.clip_low == 1200.0 / 10000);  /* 1200 of 10000 at <= 5 */
     free((void *)f.data);
 }
 
@@ -536,6 +542,7 @@ static void test_tone_simd_matches_portable(void **state)
         assert_int_equal(coach_tone_run(t1, &f, &r1, &i1), 0);
         assert_int_equal(coach_tone_run(t2, &f, &r2, &i2), 0);
         assert_memory_equal(r1.hist, r2.hist, sizeof(r1.hist));
+        assert_true(r1.clip_high == r2.clip_high && r1.clip_low == r2.clip_low);
         assert_true(r1.exposure_ev == r2.exposure_ev);
         assert_true(r1.colourfulness == r2.colourfulness);
         assert_true(r1.sharpness == r2.sharpness);
