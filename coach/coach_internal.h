@@ -107,6 +107,7 @@ typedef struct coach_fft_plan {
     int n, log2n;
     float tw_re[COACH_FFT_MAX / 2], tw_im[COACH_FFT_MAX / 2];
     uint16_t rev[COACH_FFT_MAX];
+    int simd;       /* 1: the AVX2 butterflies (same results), set by init */
 } coach_fft_plan;
 /* 0, or -1 when n is not a power of two in 2..COACH_FFT_MAX. */
 int coach_fft_plan_init(coach_fft_plan *p, int n);
