@@ -42,17 +42,17 @@
  * this file asks for -O3 when optimising at all; on x86-64 the kernels are
  * also built a second time for AVX2 and picked when the analyzer is made
  * (tone_kernels below), which halves their cost on machines that have it
- * and changes no result (integer maths).  The
- * two hottest rows (XRGB8888 pixels, the Laplacian) also have hand-written
- * AVX2 versions, chosen at run time and bit-identical to the portable
- * loops (tests/test_coach.c runs both).
+ * and changes no result (integer maths).  The hottest rows (XRGB8888
+ * pixels, the Laplacian at even block widths, the clip counts) also have
+ * hand-written AVX2 versions, chosen at run time and bit-identical to the
+ * portable loops (tests/test_coach.c runs both).
  *
  * Where the time goes at 1080p on one core of the development machine
- * (thread CPU time with one part left out at a time, ~2.3 ms in all): the
- * histogram with the exposure samples riding in its loop ~0.8 ms, bound by
- * its one store a pixel (4 or 16 sub-histograms, padded ones, byte loads:
- * all the same speed); the XRGB row with the box-filter flush ~1 ms, of
- * which one read of the frame alone is ~0.4 ms; the Laplacian ~0.4 ms.
+ * (callgrind instructions a frame, 18.5 M in all; 1.5-2.3 ms of thread
+ * CPU time, the same whether the frame is cached or not, so the pass is
+ * bound by its instructions, not by memory): the XRGB row with the colour
+ * sums and block sums 8.6 M; the Laplacian with its sums 3.9 M; exposure
+ * samples 2.1 M; histogram 1.3 M; clip counts 0.9 M; block flushes 0.6 M.
  * Counting the histogram inside the AVX2 XRGB loop was tried: slower
  * (register pressure), so it stays a loop of its own. */
 #if defined(__GNUC__) && !defined(__clang__) && defined(__OPTIMIZE__)
@@ -702,25 +702,34 @@ __attribute__((target("avx2"))) static inline __m256i triples_i32(__m256i pa, __
         out[ax] = (float)sum * k;                                             \
     }
 
-/* The same for the Laplacian planes (int32 sums; at widths 4 and 6 a block
- * of L^2 is at most 36 * 1020^2, far inside int32). */
-__attribute__((target("avx2"))) static int flush_i32_avx2(const int32_t *restrict acc, int scale,
+/* The same for the Laplacian planes: n int32 entries a block (n = 2, 3,
+ * 4 or 6: per-column sums at block widths 4 and 6, or sums of column pairs
+ * at 4 and 6, and at 8 and 12 for 2560 and 3840 wide frames).  A block of
+ * L^2 is at most 144 * 1020^2, far inside int32. */
+__attribute__((target("avx2"))) static int flush_i32_avx2(const int32_t *restrict acc, int n,
                                                          int aw, float k, float *restrict out)
 {
-    if (scale != 4 && scale != 6)
+    if (n != 2 && n != 3 && n != 4 && n != 6)
         return 0;
+    const int scale = n; /* for FLUSH_TAIL */
     const __m256 kk = _mm256_set1_ps(k);
     int ax = 0;
     for (; ax + 8 <= aw; ax += 8) {
-        const __m256i *a = (const __m256i *)(acc + (size_t)ax * scale);
-        __m256i pa = pairs_i32(_mm256_loadu_si256(a), _mm256_loadu_si256(a + 1));
-        __m256i pb = pairs_i32(_mm256_loadu_si256(a + 2), _mm256_loadu_si256(a + 3));
-        __m256i q;
-        if (scale == 4)
-            q = pairs_i32(pa, pb);
-        else
-            q = triples_i32(pa, pb,
-                            pairs_i32(_mm256_loadu_si256(a + 4), _mm256_loadu_si256(a + 5)));
+        const __m256i *a = (const __m256i *)(acc + (size_t)ax * n);
+        __m256i a0 = _mm256_loadu_si256(a), a1 = _mm256_loadu_si256(a + 1), q;
+        if (n == 2) {
+            q = pairs_i32(a0, a1);
+        } else if (n == 3) {
+            q = triples_i32(a0, a1, _mm256_loadu_si256(a + 2));
+        } else {
+            __m256i pa = pairs_i32(a0, a1);
+            __m256i pb = pairs_i32(_mm256_loadu_si256(a + 2), _mm256_loadu_si256(a + 3));
+            if (n == 4)
+                q = pairs_i32(pa, pb);
+            else
+                q = triples_i32(pa, pb,
+                                pairs_i32(_mm256_loadu_si256(a + 4), _mm256_loadu_si256(a + 5)));
+        }
         _mm256_storeu_ps(out + ax, _mm256_mul_ps(_mm256_cvtepi32_ps(q), kk));
     }
     FLUSH_TAIL()
@@ -755,14 +764,13 @@ __attribute__((target("avx2"))) static int flush_u16_avx2(const uint16_t *restri
 
 
 /* Laplacian [0 1 0; 1 -4 1; 0 1 0] of row c with the rows above (u) and
- * below (d), reflect-101 at the left and right ends. */
+ * below (d).  Ring rows carry their reflect-101 neighbours c[-1] = c[1] and
+ * c[w] = c[w - 2] (see pad_row), so the ends need no case of their own. */
 KBODY void lap_row_k(const uint8_t *restrict u, const uint8_t *restrict c,
                     const uint8_t *restrict d, int w, int16_t *restrict L)
 {
-    L[0] = (int16_t)(u[0] + d[0] + 2 * c[1] - 4 * c[0]);
-    for (int x = 1; x < w - 1; x++)
+    for (int x = 0; x < w; x++)
         L[x] = (int16_t)(u[x] + d[x] + c[x - 1] + c[x + 1] - 4 * c[x]);
-    L[w - 1] = (int16_t)(u[w - 1] + d[w - 1] + 2 * c[w - 2] - 4 * c[w - 1]);
 }
 
 /* Sums of L and L^2 over the row and, for rows inside the blocks, the
@@ -806,18 +814,24 @@ KBODY void lap_sums_acc_k(const int16_t *restrict L, int w, int n_acc, int mode,
 
 #if TONE_AVX2
 /* Laplacian row, its sums and the block sums in one AVX2 pass, 16 pixels a
- * step (the interior; the two border pixels and the tail go through the
- * portable code).  Same integers as lap_row + lap_sums_acc. */
+ * step, for even block widths.  One multiply-add gives both the sums of
+ * adjacent pairs of L and of L^2 as int32: the row totals need them anyway,
+ * and accumulated per column pair (al, aq hold w / 2 entries; mode 1: first
+ * row of a block, 2: later rows) they halve the block-sum loads and stores
+ * of a per-column layout, with no widening.  A block of an even width is
+ * whole pairs, so its sums are the same integers as the portable loops'. */
 __attribute__((target("avx2"))) static void
-lap_avx2(const uint8_t *restrict u, const uint8_t *restrict c, const uint8_t *restrict d, int w,
-         int n_acc, int mode, int16_t *restrict L, int32_t *restrict al, int32_t *restrict aq,
-         tone_sums *s)
+lap_pairs_avx2(const uint8_t *restrict u, const uint8_t *restrict c, const uint8_t *restrict d,
+               int w, int n_acc, int mode, int32_t *restrict al, int32_t *restrict aq,
+               tone_sums *s)
 {
     const __m256i one = _mm256_set1_epi16(1);
     __m256i sl = _mm256_setzero_si256(), ql = sl;
-    /* per lane at most 2 * 1020^2 per step and w / 16 <= 1024 steps: int32 */
-    int x = 1;
-    for (; x + 17 <= w; x += 16) {
+    const int nv = mode ? n_acc : 0; /* columns that go into blocks (even) */
+    /* per lane at most 2 * 1020^2 per step and w / 16 <= 1024 steps:
+     * ql fits uint32 */
+    int x = 0;
+    for (; x + 16 <= w; x += 16) {
         __m256i vu = _mm256_cvtepu8_epi16(_mm_loadu_si128((const __m128i *)(u + x)));
         __m256i vd = _mm256_cvtepu8_epi16(_mm_loadu_si128((const __m128i *)(d + x)));
         __m256i vl = _mm256_cvtepu8_epi16(_mm_loadu_si128((const __m128i *)(c + x - 1)));
@@ -826,38 +840,24 @@ lap_avx2(const uint8_t *restrict u, const uint8_t *restrict c, const uint8_t *re
         __m256i lv = _mm256_sub_epi16(_mm256_add_epi16(_mm256_add_epi16(vu, vd),
                                                        _mm256_add_epi16(vl, vr)),
                                       _mm256_slli_epi16(vc, 2));
-        sl = _mm256_add_epi32(sl, _mm256_madd_epi16(lv, one));
-        ql = _mm256_add_epi32(ql, _mm256_madd_epi16(lv, lv));
-        if (x + 16 <= n_acc && mode) {
-            __m256i l0 = _mm256_cvtepi16_epi32(_mm256_castsi256_si128(lv));
-            __m256i l1 = _mm256_cvtepi16_epi32(_mm256_extracti128_si256(lv, 1));
-            __m256i q0 = _mm256_mullo_epi32(l0, l0), q1 = _mm256_mullo_epi32(l1, l1);
-            __m256i *pa = (__m256i *)(al + x), *pq = (__m256i *)(aq + x);
+        __m256i pl = _mm256_madd_epi16(lv, one), pq = _mm256_madd_epi16(lv, lv);
+        sl = _mm256_add_epi32(sl, pl);
+        ql = _mm256_add_epi32(ql, pq);
+        if (x + 16 <= nv) {
+            __m256i *pa = (__m256i *)(al + x / 2), *pp = (__m256i *)(aq + x / 2);
             if (mode == 2) {
-                l0 = _mm256_add_epi32(l0, _mm256_loadu_si256(pa));
-                l1 = _mm256_add_epi32(l1, _mm256_loadu_si256(pa + 1));
-                q0 = _mm256_add_epi32(q0, _mm256_loadu_si256(pq));
-                q1 = _mm256_add_epi32(q1, _mm256_loadu_si256(pq + 1));
+                pl = _mm256_add_epi32(pl, _mm256_loadu_si256(pa));
+                pq = _mm256_add_epi32(pq, _mm256_loadu_si256(pp));
             }
-            _mm256_storeu_si256(pa, l0);
-            _mm256_storeu_si256(pa + 1, l1);
-            _mm256_storeu_si256(pq, q0);
-            _mm256_storeu_si256(pq + 1, q1);
-        } else {
-            /* the block edge falls inside this step: leave L for the
-             * scalar block accumulation below */
-            _mm256_storeu_si256((__m256i *)(L + x), lv);
-            if (mode && x < n_acc) {
-                for (int i = x; i < x + 16 && i < n_acc; i++) {
-                    int32_t l = L[i];
-                    if (mode == 1) {
-                        al[i] = l;
-                        aq[i] = l * l;
-                    } else {
-                        al[i] += l;
-                        aq[i] += l * l;
-                    }
-                }
+            _mm256_storeu_si256(pa, pl);
+            _mm256_storeu_si256(pp, pq);
+        } else if (x < nv) { /* the blocks end inside this step */
+            int32_t tl[8], tq[8];
+            _mm256_storeu_si256((__m256i *)tl, pl);
+            _mm256_storeu_si256((__m256i *)tq, pq);
+            for (int i = 0; i < (nv - x) / 2; i++) {
+                al[x / 2 + i] = mode == 1 ? tl[i] : al[x / 2 + i] + tl[i];
+                aq[x / 2 + i] = mode == 1 ? tq[i] : aq[x / 2 + i] + tq[i];
             }
         }
     }
@@ -868,26 +868,52 @@ lap_avx2(const uint8_t *restrict u, const uint8_t *restrict c, const uint8_t *re
     _mm256_storeu_si256((__m256i *)lane, ql);
     for (int i = 0; i < 8; i++)
         s->q_l += (uint32_t)lane[i];
-    /* pixel 0 and the rest from x on, portable */
-    int idx[2] = { 0, x };
-    for (int part = 0; part < 2; part++) {
-        int a = idx[part], b = part ? w : 1;
-        for (int i = a; i < b; i++) {
-            int left = i > 0 ? c[i - 1] : c[1], right = i < w - 1 ? c[i + 1] : c[w - 2];
-            int32_t l = u[i] + d[i] + left + right - 4 * c[i];
-            s->s_l += l;
-            s->q_l += (uint32_t)(l * l);
-            if (mode && i < n_acc) {
-                if (mode == 1) {
-                    al[i] = l;
-                    aq[i] = l * l;
-                } else {
-                    al[i] += l;
-                    aq[i] += l * l;
-                }
-            }
+    for (; x < w; x++) { /* the last few pixels */
+        int32_t l = u[x] + d[x] + c[x - 1] + c[x + 1] - 4 * c[x];
+        s->s_l += l;
+        s->q_l += (uint32_t)(l * l);
+        if (x < nv) {
+            int first = mode == 1 && x % 2 == 0;
+            al[x / 2] = first ? l : al[x / 2] + l;
+            aq[x / 2] = first ? l * l : aq[x / 2] + l * l;
         }
     }
+}
+#endif
+
+#if TONE_AVX2
+/* Clipped pixels of a luma row, 32 a step: unsigned compares as
+ * max(v, 250) == v and min(v, 5) == v, counted in byte lanes that are
+ * emptied into 64-bit sums (psadbw) before they can wrap.  The compiler's
+ * version of clip_row_k widens every byte to 32 bits and costs four times
+ * as many instructions. */
+__attribute__((target("avx2"))) static void clip_avx2(const uint8_t *restrict y, int w,
+                                                    tone_sums *s)
+{
+    const __m256i th = _mm256_set1_epi8((char)COACH_CLIP_HIGH);
+    const __m256i tl = _mm256_set1_epi8((char)COACH_CLIP_LOW);
+    const __m256i zero = _mm256_setzero_si256();
+    __m256i sh = zero, sl = zero;
+    int x = 0;
+    while (x + 32 <= w) {
+        int n = (w - x) / 32;
+        n = n < 255 ? n : 255; /* a byte lane counts at most 255 */
+        __m256i ch = zero, cl = zero;
+        for (int i = 0; i < n; i++, x += 32) {
+            __m256i v = _mm256_loadu_si256((const __m256i *)(y + x));
+            ch = _mm256_sub_epi8(ch, _mm256_cmpeq_epi8(_mm256_max_epu8(v, th), v));
+            cl = _mm256_sub_epi8(cl, _mm256_cmpeq_epi8(_mm256_min_epu8(v, tl), v));
+        }
+        sh = _mm256_add_epi64(sh, _mm256_sad_epu8(ch, zero));
+        sl = _mm256_add_epi64(sl, _mm256_sad_epu8(cl, zero));
+    }
+    uint64_t lh[4], ll[4];
+    _mm256_storeu_si256((__m256i *)lh, sh);
+    _mm256_storeu_si256((__m256i *)ll, sl);
+    s->clip_hi += lh[0] + lh[1] + lh[2] + lh[3];
+    s->clip_lo += ll[0] + ll[1] + ll[2] + ll[3];
+    if (x < w)
+        clip_row_k(y + x, w - x, s);
 }
 #endif
 
@@ -1040,7 +1066,11 @@ int coach_tone_run(coach_tone *t, const coach_frame *f, coach_result *out, coach
 
     memset(t->hist8, 0, sizeof(t->hist8));
     tone_sums s = { 0 };
-    uint8_t *ring[3] = { t->ring, t->ring + W, t->ring + 2 * W };
+    /* ring rows start 32 bytes in: room for the reflected neighbours */
+    uint8_t *ring[3] = { t->ring + 32, t->ring + W + 32, t->ring + 2 * W + 32 };
+    /* even block widths take the column-pair Laplacian (AVX2) */
+    const int lap_pairs = TONE_AVX2 && t->simd && scale % 2 == 0;
+    const int lap_n = lap_pairs ? scale / 2 : scale; /* entries a block */
 
     for (int y = 0; y <= h; y++) {
         if (y < h) {
@@ -1085,8 +1115,16 @@ int coach_tone_run(coach_tone *t, const coach_frame *f, coach_result *out, coach
                 if (y < bh)
                     t->k->acc(t->acc, r, g, b, yr, bw, (int)W, y % scale == 0);
             }
+            /* reflect-101 neighbours for the Laplacian: x = -1 reads x = 1 */
+            yr[-1] = yr[1];
+            yr[w] = yr[w - 2];
             hist_row(t, yr, w, y);
-            t->k->clip(yr, w, &s);
+#if TONE_AVX2
+            if (t->simd)
+                clip_avx2(yr, w, &s);
+            else
+#endif
+                t->k->clip(yr, w, &s);
             if (y < bh && y % scale == scale - 1) {
                 size_t o = (size_t)(y / scale) * aw;
                 float *dst[4] = { pl_r + o, pl_g + o, pl_b + o, pl_y + o };
@@ -1109,8 +1147,8 @@ int coach_tone_run(coach_tone *t, const coach_frame *f, coach_result *out, coach
         const uint8_t *d = ly < h - 1 ? ring[(ly + 1) % 3] : ring[(ly - 1) % 3];
         int mode = ly < bh ? (ly % scale == 0 ? 1 : 2) : 0;
 #if TONE_AVX2
-        if (t->simd) {
-            lap_avx2(u, c, d, w, bw, mode, t->lap, t->accl, t->accq, &s);
+        if (lap_pairs) {
+            lap_pairs_avx2(u, c, d, w, bw, mode, t->accl, t->accq, &s);
         } else
 #endif
         {
@@ -1123,12 +1161,12 @@ int coach_tone_run(coach_tone *t, const coach_frame *f, coach_result *out, coach
                 size_t o = (size_t)(ly / scale) * aw;
                 int done = 0;
 #if TONE_AVX2
-                done = t->simd && flush_i32_avx2(t->accl, scale, aw, kblk, pl_l + o) &&
-                       flush_i32_avx2(t->accq, scale, aw, kblk, pl_q + o);
+                done = t->simd && flush_i32_avx2(t->accl, lap_n, aw, kblk, pl_l + o) &&
+                       flush_i32_avx2(t->accq, lap_n, aw, kblk, pl_q + o);
 #endif
                 if (!done) {
-                    flush_i32(t->accl, scale, aw, kblk, tmp, pl_l + o);
-                    flush_u32((const uint32_t *)t->accq, scale, aw, kblk, (uint32_t *)tmp,
+                    flush_i32(t->accl, lap_n, aw, kblk, tmp, pl_l + o);
+                    flush_u32((const uint32_t *)t->accq, lap_n, aw, kblk, (uint32_t *)tmp,
                               pl_q + o);
                 }
             }
