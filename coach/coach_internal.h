@@ -101,6 +101,31 @@ void coach_sb_num(coach_sbuf *b, double v, int decimals);
 
 /* ---- composition internals (compose*.c, level.c, saliency.c, motion.c) -- */
 
+/* Vectorised kernels of the composition files.  COACH_O3 at the top of a
+ * file asks GCC for -O3 there: the release build is -O2, whose vectoriser
+ * leaves loops with a run-time trip count scalar (tone.c does the same).
+ * COACH_AVX2 is 1 where a kernel may have a copy compiled for AVX2 (the
+ * same operations, so the same results; no FMA), used when
+ * coach_cpu_avx2() says the CPU has it.  Function attributes and
+ * __builtin_cpu_supports, not ifunc/target_clones: their resolvers run
+ * before the sanitiser runtimes start and crashed those builds. */
+#if defined(__GNUC__) && !defined(__clang__) && defined(__OPTIMIZE__)
+#define COACH_O3 _Pragma("GCC optimize(\"O3\")")
+#else
+#define COACH_O3
+#endif
+#if defined(__x86_64__) && defined(__GNUC__) && !defined(__clang__)
+#define COACH_AVX2 1
+static inline int coach_cpu_avx2(void)
+{
+    __builtin_cpu_init();
+    return __builtin_cpu_supports("avx2") != 0;
+}
+#else
+#define COACH_AVX2 0
+static inline int coach_cpu_avx2(void) { return 0; }
+#endif
+
 /* Power-of-two complex FFT plan, no allocation (compose_fft.c). */
 #define COACH_FFT_MAX 128
 typedef struct coach_fft_plan {

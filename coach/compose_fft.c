@@ -25,21 +25,10 @@
 
 #include "coach/coach_internal.h"
 
-/* The release build is -O2, whose vectoriser leaves loops with a run-time
- * trip count scalar; the butterflies need it (as in tone.c). */
-#if defined(__GNUC__) && !defined(__clang__) && defined(__OPTIMIZE__)
-#pragma GCC optimize("O3")
-#endif
+COACH_O3
 
-/* The butterflies are compute-bound: on CPUs with AVX2 a copy compiled for
- * it (twice the lanes, the same operations, so the same results) is chosen
- * at plan time.  Plain function attributes and __builtin_cpu_supports, as in
- * tone.c (ifunc resolvers crash the sanitiser builds). */
-#if defined(__x86_64__) && defined(__GNUC__) && !defined(__clang__)
-#define FFT_AVX2 1
-#else
-#define FFT_AVX2 0
-#endif
+/* The butterflies are compute-bound: with AVX2 a copy compiled for it
+ * (twice the lanes) is chosen at plan time (see COACH_AVX2). */
 #define KBODY static inline __attribute__((always_inline))
 
 int coach_fft_plan_init(coach_fft_plan *p, int n)
@@ -56,12 +45,7 @@ int coach_fft_plan_init(coach_fft_plan *p, int n)
         p->tw_re[i] = (float)cos(a);
         p->tw_im[i] = (float)sin(a);
     }
-#if FFT_AVX2
-    __builtin_cpu_init();
-    p->simd = __builtin_cpu_supports("avx2") != 0;
-#else
-    p->simd = 0;
-#endif
+    p->simd = coach_cpu_avx2();
     for (int i = 0; i < n; i++) {
         int r = 0;
         for (int b = 0; b < lg; b++)
@@ -150,7 +134,7 @@ static void fft_columns_plain(const coach_fft_plan *p, float *restrict x, int co
     fft_columns_body(p, x, cols, inverse);
 }
 
-#if FFT_AVX2
+#if COACH_AVX2
 __attribute__((target("avx2"))) static void fft_columns_avx2(const coach_fft_plan *p,
                                                              float *restrict x, int cols,
                                                              int inverse)
@@ -161,7 +145,7 @@ __attribute__((target("avx2"))) static void fft_columns_avx2(const coach_fft_pla
 
 static void fft_columns(const coach_fft_plan *p, float *restrict x, int cols, int inverse)
 {
-#if FFT_AVX2
+#if COACH_AVX2
     if (p->simd) {
         fft_columns_avx2(p, x, cols, inverse);
         return;

@@ -21,12 +21,24 @@
  *     direction of their vanishing point (see verticals()).  A steep
  *     "horizon" that the verticals contradict is a receding line and loses
  *     to them.  Flat, blank and noise-only frames give no level at all.
+ *
+ * Where the time goes (callgrind, bench build, 320x180 analysis image of the
+ * 1080p harbour demo, per frame): 2.7 M instructions before the edge scans
+ * skipped sub-threshold pixels eight at a time and the Sobel pass got an
+ * AVX2 copy, 1.8 M after: Sobel 0.2 M, sampled magnitude histogram 0.06 M,
+ * thinning 0.2 M, voting 0.8 M (0.2 M of it clearing the accumulator),
+ * peak search 0.1 M, line fits 0.1 M.
  */
 #include <math.h>
 #include <stdlib.h>
 #include <string.h>
+#ifdef __SSE2__
+#include <emmintrin.h>
+#endif
 
 #include "coach/coach_internal.h"
+
+COACH_O3
 
 #define FAM_HALF_DEG 30.0         /* each family spans +-30 degrees          */
 #define BIN_DEG 0.5               /* Hough angle bin                          */
@@ -57,13 +69,15 @@ typedef struct line_fit {
 
 struct coach_level {
     int max_w, max_h, nrho_max;
+    int simd;            /* 1: the AVX2 copy of the Sobel pass (compute-bound) */
     float *gx, *gy, *mag;
     int *edge_idx;       /* indices of edge pixels                          */
     int16_t *edge_x, *edge_y; /* and their coordinates                      */
     float *acc;          /* [2][NANG][nrho]                                 */
     float *pos, *wt;     /* sub-pixel positions along one line              */
     uint8_t *keep;
-    float cosv[2][NANG], sinv[2][NANG];
+    /* padded to whole groups of 4 so the voting loop can read 4 at a time */
+    float cosv[2][NANG + 4], sinv[2][NANG + 4];
 };
 
 coach_level *coach_level_create(int max_w, int max_h)
@@ -94,8 +108,9 @@ coach_level *coach_level_create(int max_w, int max_h)
         coach_level_destroy(l);
         return NULL;
     }
+    l->simd = coach_cpu_avx2();
     for (int f = 0; f < 2; f++)
-        for (int i = 0; i < NANG; i++) {
+        for (int i = 0; i < NANG + 4; i++) {
             double phi = (f == FAM_H ? 90.0 : 0.0) + (i * BIN_DEG - FAM_HALF_DEG);
             l->cosv[f][i] = (float)cos(phi * M_PI / 180.0);
             l->sinv[f][i] = (float)sin(phi * M_PI / 180.0);
@@ -121,10 +136,10 @@ void coach_level_destroy(coach_level *l)
 }
 
 /* One row of Sobel gradients from the rows above (a), at (b) and below (c);
- * outputs start at the second pixel.  A function of its own so that the
- * restrict promises let the compiler vectorise it. */
-static void sobel_row(const float *a, const float *b, const float *c, float *restrict gx,
-                      float *restrict gy, float *restrict m, int n)
+ * outputs start at the second pixel. */
+static inline __attribute__((always_inline)) void
+sobel_row(const float *a, const float *b, const float *c, float *restrict gx, float *restrict gy,
+          float *restrict m, int n)
 {
     for (int i = 0; i < n; i++) {
         float sx = (a[i + 2] - a[i]) + 2.0f * (b[i + 2] - b[i]) + (c[i + 2] - c[i]);
@@ -134,6 +149,35 @@ static void sobel_row(const float *a, const float *b, const float *c, float *res
         m[i] = sx * sx + sy * sy;
     }
 }
+
+/* Rows 1 .. h-2 of gradients into gx, gy and the squared magnitude m (all
+ * w x h); the first and last column of each row set to 0. */
+static inline __attribute__((always_inline)) void
+sobel_body(const float *p, int w, int h, float *restrict gx, float *restrict gy, float *restrict m)
+{
+    for (int y = 1; y < h - 1; y++) {
+        const float *a = p + (size_t)(y - 1) * w;
+        const size_t o = (size_t)y * w;
+        gx[o] = gy[o] = m[o] = 0;
+        gx[o + w - 1] = gy[o + w - 1] = m[o + w - 1] = 0;
+        sobel_row(a, a + w, a + 2 * w, gx + o + 1, gy + o + 1, m + o + 1, w - 2);
+    }
+}
+
+static void sobel_plain(const float *p, int w, int h, float *restrict gx, float *restrict gy,
+                        float *restrict m)
+{
+    sobel_body(p, w, h, gx, gy, m);
+}
+
+#if COACH_AVX2
+__attribute__((target("avx2"))) static void sobel_avx2(const float *p, int w, int h,
+                                                       float *restrict gx, float *restrict gy,
+                                                       float *restrict m)
+{
+    sobel_body(p, w, h, gx, gy, m);
+}
+#endif
 
 /* Sobel gradients on the interior (the 1-pixel border stays 0), with mag
  * holding the squared magnitude.  Returns the edge threshold on the
@@ -152,16 +196,33 @@ static float gradients(coach_level *l, const float *p, int w, int h, float *vote
     memset(l->gx + (size_t)(h - 1) * w, 0, (size_t)w * sizeof(float));
     memset(l->gy + (size_t)(h - 1) * w, 0, (size_t)w * sizeof(float));
     memset(l->mag + (size_t)(h - 1) * w, 0, (size_t)w * sizeof(float));
+#if COACH_AVX2
+    if (l->simd)
+        sobel_avx2(p, w, h, l->gx, l->gy, l->mag);
+    else
+#endif
+        sobel_plain(p, w, h, l->gx, l->gy, l->mag);
     uint32_t total = 0;
-    for (int y = 1; y < h - 1; y++) {
-        const float *a = p + (size_t)(y - 1) * w;
-        float *gx = l->gx + (size_t)y * w, *gy = l->gy + (size_t)y * w, *m = l->mag + (size_t)y * w;
-        gx[0] = gy[0] = m[0] = 0;
-        gx[w - 1] = gy[w - 1] = m[w - 1] = 0;
-        sobel_row(a, a + w, a + 2 * w, gx + 1, gy + 1, m + 1, w - 2);
-        if (y & 1)
-            continue;
-        for (int x = 1; x < w - 1; x += 2) {
+    for (int y = 2; y < h - 1; y += 2) {
+        const float *m = l->mag + (size_t)y * w;
+        int x = 1;
+#ifdef __SSE2__
+        /* bins of four samples at once: m[x], m[x+2], m[x+4], m[x+6] */
+        const __m128 half = _mm_set1_ps(0.5f), top = _mm_set1_ps(63.0f);
+        for (; x + 7 < w - 1; x += 8) {
+            __m128 ev = _mm_shuffle_ps(_mm_loadu_ps(m + x), _mm_loadu_ps(m + x + 4),
+                                       _MM_SHUFFLE(2, 0, 2, 0));
+            int32_t bins[4];
+            _mm_storeu_si128((__m128i *)bins,
+                             _mm_cvttps_epi32(_mm_min_ps(_mm_mul_ps(_mm_sqrt_ps(ev), half), top)));
+            hist[bins[0]]++;
+            hist[bins[1]]++;
+            hist[bins[2]]++;
+            hist[bins[3]]++;
+            total += 4;
+        }
+#endif
+        for (; x < w - 1; x += 2) {
             int bin = (int)(sqrtf(m[x]) * 0.5f);
             hist[bin < 63 ? bin : 63]++;
             total++;
@@ -205,35 +266,62 @@ static float atan2_deg(float y, float x)
     return r * 57.2957795f;
 }
 
+#ifdef __SSE2__
+/* Bit i set when p[i] >= t, i = 0..7: most pixels and Hough cells fall
+ * below the thresholds, so the loops test eight at once and visit only the
+ * rest, in order. */
+static inline unsigned at_least8(const float *p, __m128 t)
+{
+    return (unsigned)_mm_movemask_ps(_mm_cmpge_ps(_mm_loadu_ps(p), t)) |
+           (unsigned)_mm_movemask_ps(_mm_cmpge_ps(_mm_loadu_ps(p + 4), t)) << 4;
+}
+#endif
+
+/* Non-maximum suppression along the quantised gradient at pixel x of row
+ * y (m, gx, gy point at the row): appends it to the edge list when it is a
+ * maximum; returns the new count. */
+static inline int thin_at(coach_level *l, const float *m, const float *gx, const float *gy, int w,
+                          int x, int y, int n)
+{
+    float mm = m[x];
+    float ax = fabsf(gx[x]), ay = fabsf(gy[x]);
+    int off;
+    if (ay <= 0.4142f * ax)
+        off = 1;                       /* gradient ~horizontal      */
+    else if (ax <= 0.4142f * ay)
+        off = w;                       /* gradient ~vertical        */
+    else if ((gx[x] > 0) == (gy[x] > 0))
+        off = w + 1;
+    else
+        off = w - 1;
+    if (mm < m[x - off] || mm <= m[x + off])
+        return n;
+    l->edge_idx[n] = y * w + x;
+    l->edge_x[n] = (int16_t)x;
+    l->edge_y[n] = (int16_t)y;
+    return n + 1;
+}
+
 /* Thin edges (non-maximum suppression along the quantised gradient). */
 static int thin_edges(coach_level *l, int w, int h, float thr)
 {
     int n = 0;
     const float thr2 = thr * thr;
+#ifdef __SSE2__
+    const __m128 t4 = _mm_set1_ps(thr2);
+#endif
     for (int y = 2; y < h - 2; y++) {
         const float *m = l->mag + (size_t)y * w;
         const float *gx = l->gx + (size_t)y * w, *gy = l->gy + (size_t)y * w;
-        for (int x = 2; x < w - 2; x++) {
-            float mm = m[x];
-            if (mm < thr2)
-                continue;
-            float ax = fabsf(gx[x]), ay = fabsf(gy[x]);
-            int off;
-            if (ay <= 0.4142f * ax)
-                off = 1;                       /* gradient ~horizontal      */
-            else if (ax <= 0.4142f * ay)
-                off = w;                       /* gradient ~vertical        */
-            else if ((gx[x] > 0) == (gy[x] > 0))
-                off = w + 1;
-            else
-                off = w - 1;
-            if (mm < m[x - off] || mm <= m[x + off])
-                continue;
-            l->edge_idx[n] = y * w + x;
-            l->edge_x[n] = (int16_t)x;
-            l->edge_y[n] = (int16_t)y;
-            n++;
-        }
+        int x = 2;
+#ifdef __SSE2__
+        for (; x + 8 <= w - 2; x += 8)
+            for (unsigned bits = at_least8(m + x, t4); bits; bits &= bits - 1)
+                n = thin_at(l, m, gx, gy, w, x + __builtin_ctz(bits), y, n);
+#endif
+        for (; x < w - 2; x++)
+            if (m[x] >= thr2)
+                n = thin_at(l, m, gx, gy, w, x, y, n);
     }
     return n;
 }
@@ -285,9 +373,53 @@ static void vote(coach_level *l, int w, int h, int nedge, float thr, int nrho, i
         const float *cv = l->cosv[fam], *sv = l->sinv[fam];
         float *arow = l->acc + ((size_t)fam * NANG + (size_t)i0) * nrho;
         const float rx = roff + 0.5f; /* rho >= 0 after the offset: truncation rounds */
+#ifdef __SSE2__
+        /* The rho cells four angles at a time (the same products and sums
+         * per lane; the tables are padded past the last angle). */
+        int32_t ir[2 * VOTE_SPREAD + 4];
+        const __m128 xv = _mm_set1_ps(x), yv = _mm_set1_ps(y), rv = _mm_set1_ps(rx);
+        for (int t = 0; t <= i1 - i0; t += 4) {
+            __m128 r = _mm_add_ps(_mm_add_ps(_mm_mul_ps(xv, _mm_loadu_ps(cv + i0 + t)),
+                                             _mm_mul_ps(yv, _mm_loadu_ps(sv + i0 + t))), rv);
+            _mm_storeu_si128((__m128i *)(ir + t), _mm_cvttps_epi32(r));
+        }
+        for (int t = 0; t <= i1 - i0; t++, arow += nrho)
+            arow[ir[t]] += wv;
+#else
         for (int i = i0; i <= i1; i++, arow += nrho)
             arow[(int)(x * cv[i] + y * sv[i] + rx)] += wv;
+#endif
     }
+}
+
+/* Cell r of angle row i when it is a local maximum of at least min_votes:
+ * inserted into cand (strongest first, at most MAX_PEAKS * 2); returns the
+ * new count. */
+static inline int peak_at(const float *acc, int nrho, int i, int r, float min_votes, peak *cand,
+                          int nc)
+{
+    const int cmax = MAX_PEAKS * 2;
+    const float *row = acc + (size_t)i * nrho;
+    float v = row[r];
+    if (v < min_votes || v < row[r - 1] || v <= row[r + 1])
+        return nc;
+    if (nc == cmax && v <= cand[nc - 1].votes)
+        return nc;
+    for (int di = -1; di <= 1; di += 2) {
+        int ii = i + di;
+        if (ii < 0 || ii >= NANG)
+            continue;
+        const float *o = acc + (size_t)ii * nrho + r;
+        if (o[-1] > v || o[0] > v || o[1] > v)
+            return nc;
+    }
+    int k = nc < cmax ? nc++ : cmax - 1;
+    while (k > 0 && cand[k - 1].votes < v) {
+        cand[k] = cand[k - 1];
+        k--;
+    }
+    cand[k] = (peak){v, i, r};
+    return nc;
 }
 
 /* Local maxima of one family above min_votes, strongest first, then
@@ -297,33 +429,19 @@ static int find_peaks(const coach_level *l, int fam, int nrho, float min_votes, 
     const float *acc = l->acc + (size_t)fam * NANG * nrho;
     peak cand[MAX_PEAKS * 2];
     int nc = 0;
-    const int cmax = MAX_PEAKS * 2;
+#ifdef __SSE2__
+    const __m128 mv4 = _mm_set1_ps(min_votes);
+#endif
     for (int i = 0; i < NANG; i++) {
         const float *row = acc + (size_t)i * nrho;
-        for (int r = 1; r < nrho - 1; r++) {
-            float v = row[r];
-            if (v < min_votes || v < row[r - 1] || v <= row[r + 1])
-                continue;
-            if (nc == cmax && v <= cand[nc - 1].votes)
-                continue;
-            int ok = 1;
-            for (int di = -1; di <= 1 && ok; di++) {
-                int ii = i + di;
-                if (di == 0 || ii < 0 || ii >= NANG)
-                    continue;
-                const float *o = acc + (size_t)ii * nrho + r;
-                if (o[-1] > v || o[0] > v || o[1] > v)
-                    ok = 0;
-            }
-            if (!ok)
-                continue;
-            int k = nc < cmax ? nc++ : cmax - 1;
-            while (k > 0 && cand[k - 1].votes < v) {
-                cand[k] = cand[k - 1];
-                k--;
-            }
-            cand[k] = (peak){v, i, r};
-        }
+        int r = 1;
+#ifdef __SSE2__
+        for (; r + 8 <= nrho - 1; r += 8)
+            for (unsigned bits = at_least8(row + r, mv4); bits; bits &= bits - 1)
+                nc = peak_at(acc, nrho, i, r + __builtin_ctz(bits), min_votes, cand, nc);
+#endif
+        for (; r < nrho - 1; r++)
+            nc = peak_at(acc, nrho, i, r, min_votes, cand, nc);
     }
     int np = 0;
     for (int c = 0; c < nc && np < maxp; c++) {
