@@ -244,37 +244,12 @@ static inline uint8_t luma709(unsigned r, unsigned g, unsigned b)
     return (uint8_t)((LW_R * r + LW_G * g + LW_B * b + 32768u) >> 16);
 }
 
-/* Packed 3-byte pixels; ri/bi are compile-time constants at each call so
- * the compiler can specialise the shuffles. */
-static inline __attribute__((always_inline)) void
-unpack_rgb3(const uint8_t *restrict p, int w, int ri, int bi, uint8_t *restrict r,
-            uint8_t *restrict g, uint8_t *restrict b, uint8_t *restrict y)
-{
-    for (int x = 0; x < w; x++) {
-        unsigned R = p[3 * x + ri], G = p[3 * x + 1], B = p[3 * x + bi];
-        r[x] = (uint8_t)R;
-        g[x] = (uint8_t)G;
-        b[x] = (uint8_t)B;
-        y[x] = luma709(R, G, B);
-    }
-}
-
-KBODY void unpack_rgb24_k(const uint8_t *restrict p, int w, uint8_t *restrict r,
-                         uint8_t *restrict g, uint8_t *restrict b, uint8_t *restrict y)
-{
-    unpack_rgb3(p, w, 0, 2, r, g, b, y);
-}
-
-KBODY void unpack_bgr24_k(const uint8_t *restrict p, int w, uint8_t *restrict r,
-                         uint8_t *restrict g, uint8_t *restrict b, uint8_t *restrict y)
-{
-    unpack_rgb3(p, w, 2, 0, r, g, b, y);
-}
-
-/* XRGB8888, the program's own format, in one fused loop: luma, the
- * colourfulness sums and the block column sums straight from the pixel
- * words, with no planar copies to write and read back. */
+/* Packed pixels (XRGB8888, the program's own format; RGB24 and BGR24, what
+ * cameras' MJPEG becomes through libv4lconvert) in one fused loop: luma,
+ * the colourfulness sums and the block column sums straight from the
+ * pixels, with no planar copies to write and read back. */
 typedef struct colour_sums { int32_t srg, syb, qrg, qyb; } colour_sums;
+enum { PK_XRGB, PK_RGB24, PK_BGR24 };
 
 /* Byte k of a pixel word read with memcpy, whatever the host's byte order. */
 #if defined(__BYTE_ORDER__) && __BYTE_ORDER__ == __ORDER_BIG_ENDIAN__
@@ -287,23 +262,43 @@ typedef struct colour_sums { int32_t srg, syb, qrg, qyb; } colour_sums;
 #define SH_R 16
 #endif
 
-KBODY void xrgb_fused_k(const uint8_t *restrict p, int x0, int x1, uint8_t *restrict y,
-                           uint16_t *restrict ar, uint16_t *restrict ag, uint16_t *restrict ab,
-                           uint16_t *restrict ay, int first, int acc, colour_sums *cs)
+/* Pixel x of a packed row; pk is a constant at every call. */
+static inline __attribute__((always_inline)) void load_px(const uint8_t *restrict p, int pk,
+                                                          size_t x, int *R, int *G, int *B)
+{
+    if (pk == PK_XRGB) {
+        uint32_t v;
+        memcpy(&v, p + 4 * x, 4);
+        *R = (int)((v >> SH_R) & 255u);
+        *G = (int)((v >> SH_G) & 255u);
+        *B = (int)((v >> SH_B) & 255u);
+    } else {
+        const uint8_t *q = p + 3 * x;
+        *R = q[pk == PK_RGB24 ? 0 : 2];
+        *G = q[1];
+        *B = q[pk == PK_RGB24 ? 2 : 0];
+    }
+}
+
+KBODY void packed_fused_k(const uint8_t *restrict p, int pk, int x0, int x1,
+                          uint8_t *restrict y, uint16_t *restrict ar, uint16_t *restrict ag,
+                          uint16_t *restrict ab, uint16_t *restrict ay, int first, int acc,
+                          colour_sums *cs)
 {
     int32_t srg = 0, syb = 0, qrg = 0, qyb = 0;
+#define PACKED_PIXEL()                                                        \
+    int R, G, B;                                                              \
+    load_px(p, pk, (size_t)x, &R, &G, &B);                                    \
+    int Y = (LW_R * R + LW_G * G + LW_B * B + 32768) >> 16;                   \
+    y[x] = (uint8_t)Y;                                                        \
+    int rg = R - G, yb = R + G - 2 * B;                                       \
+    srg += rg;                                                                \
+    syb += yb;                                                                \
+    qrg += rg * rg;                                                           \
+    qyb += yb * yb
     if (acc && first) {
         for (int x = x0; x < x1; x++) {
-            uint32_t v;
-            memcpy(&v, p + 4 * (size_t)x, 4);
-            int R = (int)((v >> SH_R) & 255u), G = (int)((v >> SH_G) & 255u), B = (int)((v >> SH_B) & 255u);
-            int Y = (LW_R * R + LW_G * G + LW_B * B + 32768) >> 16;
-            y[x] = (uint8_t)Y;
-            int rg = R - G, yb = R + G - 2 * B;
-            srg += rg;
-            syb += yb;
-            qrg += rg * rg;
-            qyb += yb * yb;
+            PACKED_PIXEL();
             ar[x] = (uint16_t)R;
             ag[x] = (uint16_t)G;
             ab[x] = (uint16_t)B;
@@ -311,16 +306,7 @@ KBODY void xrgb_fused_k(const uint8_t *restrict p, int x0, int x1, uint8_t *rest
         }
     } else if (acc) {
         for (int x = x0; x < x1; x++) {
-            uint32_t v;
-            memcpy(&v, p + 4 * (size_t)x, 4);
-            int R = (int)((v >> SH_R) & 255u), G = (int)((v >> SH_G) & 255u), B = (int)((v >> SH_B) & 255u);
-            int Y = (LW_R * R + LW_G * G + LW_B * B + 32768) >> 16;
-            y[x] = (uint8_t)Y;
-            int rg = R - G, yb = R + G - 2 * B;
-            srg += rg;
-            syb += yb;
-            qrg += rg * rg;
-            qyb += yb * yb;
+            PACKED_PIXEL();
             ar[x] = (uint16_t)(ar[x] + R);
             ag[x] = (uint16_t)(ag[x] + G);
             ab[x] = (uint16_t)(ab[x] + B);
@@ -328,17 +314,10 @@ KBODY void xrgb_fused_k(const uint8_t *restrict p, int x0, int x1, uint8_t *rest
         }
     } else {
         for (int x = x0; x < x1; x++) {
-            uint32_t v;
-            memcpy(&v, p + 4 * (size_t)x, 4);
-            int R = (int)((v >> SH_R) & 255u), G = (int)((v >> SH_G) & 255u), B = (int)((v >> SH_B) & 255u);
-            y[x] = (uint8_t)((LW_R * R + LW_G * G + LW_B * B + 32768) >> 16);
-            int rg = R - G, yb = R + G - 2 * B;
-            srg += rg;
-            syb += yb;
-            qrg += rg * rg;
-            qyb += yb * yb;
+            PACKED_PIXEL();
         }
     }
+#undef PACKED_PIXEL
     cs->srg += srg;
     cs->syb += syb;
     cs->qrg += qrg;
@@ -350,21 +329,40 @@ KBODY void xrgb_fused_k(const uint8_t *restrict p, int x0, int x1, uint8_t *rest
 #define PREFETCH_AHEAD 2048
 /* The same loop by hand for AVX2, 16 pixels a step: the compiler's version
  * of the fused loop runs out of registers and spills.  Same integer maths,
- * bit-identical results (tests run both). */
-__attribute__((target("avx2"))) static void
-xrgb_fused_avx2(const uint8_t *restrict p, int x0, int x1, uint8_t *restrict y,
-                uint16_t *restrict ar, uint16_t *restrict ag, uint16_t *restrict ab,
-                uint16_t *restrict ay, int first, int acc, colour_sums *cs)
+ * bit-identical results (tests run both).  3-byte pixels are first spread
+ * into the XRGB word layout: each 128-bit half of a register takes 4
+ * pixels (12 bytes) and one byte shuffle places them; the second register's
+ * upper half starts 4 bytes early so no load reads past the 16 pixels. */
+__attribute__((target("avx2"))) static inline __attribute__((always_inline)) void
+packed_avx2(const uint8_t *restrict p, int pk, int x0, int x1, uint8_t *restrict y,
+            uint16_t *restrict ar, uint16_t *restrict ag, uint16_t *restrict ab,
+            uint16_t *restrict ay, int first, int acc, colour_sums *cs)
 {
+    /* byte sources of B, G, R in each 4-pixel half (-1: zero) */
+    const int rb = pk == PK_RGB24 ? 2 : 0, bb = 2 - rb;
+#define SH3(o) (char)(rb + (o)), (char)(1 + (o)), (char)(bb + (o)), -1
+    const __m256i m3a = _mm256_setr_epi8(SH3(0), SH3(3), SH3(6), SH3(9), SH3(0), SH3(3), SH3(6), SH3(9));
+    const __m256i m3b = _mm256_setr_epi8(SH3(0), SH3(3), SH3(6), SH3(9), SH3(4), SH3(7), SH3(10), SH3(13));
+#undef SH3
+    const size_t bpp = pk == PK_XRGB ? 4 : 3;
     const __m256i m255 = _mm256_set1_epi32(255), half = _mm256_set1_epi32(32768);
     const __m256i wr = _mm256_set1_epi32(LW_R), wg = _mm256_set1_epi32(LW_G),
                   wb = _mm256_set1_epi32(LW_B), one = _mm256_set1_epi16(1);
     __m256i srg = _mm256_setzero_si256(), syb = srg, qrg = srg, qyb = srg;
     int x = x0;
     for (; x + 16 <= x1; x += 16) {
-        _mm_prefetch((const char *)(p + 4 * (size_t)x + PREFETCH_AHEAD), _MM_HINT_T0);
-        __m256i v0 = _mm256_loadu_si256((const __m256i *)(p + 4 * (size_t)x));
-        __m256i v1 = _mm256_loadu_si256((const __m256i *)(p + 4 * (size_t)x + 32));
+        const uint8_t *q = p + bpp * (size_t)x;
+        _mm_prefetch((const char *)(q + PREFETCH_AHEAD), _MM_HINT_T0);
+        __m256i v0, v1;
+        if (pk == PK_XRGB) {
+            v0 = _mm256_loadu_si256((const __m256i *)q);
+            v1 = _mm256_loadu_si256((const __m256i *)(q + 32));
+        } else {
+            v0 = _mm256_shuffle_epi8(_mm256_loadu2_m128i((const __m128i *)(q + 12),
+                                                         (const __m128i *)q), m3a);
+            v1 = _mm256_shuffle_epi8(_mm256_loadu2_m128i((const __m128i *)(q + 32),
+                                                         (const __m128i *)(q + 24)), m3b);
+        }
         __m256i b0 = _mm256_and_si256(v0, m255), b1 = _mm256_and_si256(v1, m255);
         __m256i g0 = _mm256_and_si256(_mm256_srli_epi32(v0, 8), m255);
         __m256i g1 = _mm256_and_si256(_mm256_srli_epi32(v1, 8), m255);
@@ -418,8 +416,20 @@ xrgb_fused_avx2(const uint8_t *restrict p, int x0, int x1, uint8_t *restrict y,
     cs->qrg += tot[2];
     cs->qyb += tot[3];
     if (x < x1) /* the last few pixels */
-        xrgb_fused_k(p, x, x1, y, ar, ag, ab, ay, first, acc, cs);
+        packed_fused_k(p, pk, x, x1, y, ar, ag, ab, ay, first, acc, cs);
 }
+
+#define PACKED_AVX2(NAME, PK)                                                   \
+    __attribute__((target("avx2"))) static void NAME(                         \
+        const uint8_t *restrict p, int x0, int x1, uint8_t *restrict y,       \
+        uint16_t *restrict ar, uint16_t *restrict ag, uint16_t *restrict ab,  \
+        uint16_t *restrict ay, int first, int acc, colour_sums *cs)           \
+    {                                                                         \
+        packed_avx2(p, PK, x0, x1, y, ar, ag, ab, ay, first, acc, cs);        \
+    }
+PACKED_AVX2(xrgb_avx2, PK_XRGB)
+PACKED_AVX2(rgb24_avx2, PK_RGB24)
+PACKED_AVX2(bgr24_avx2, PK_BGR24)
 #endif
 
 /* Y'CbCr -> R'G'B' in 1/16384 units, per ITU-R BT.601-7 / BT.709-6:
@@ -558,16 +568,15 @@ SCALAR static void lin_row(const coach_tone *t, const uint8_t *restrict r,
     s->nlin += n;
 }
 
-/* The same samples of an XRGB8888 row, each pixel read as one word. */
-SCALAR static void lin_xrgb(const coach_tone *t, const uint8_t *restrict p, int w, int row,
-                            tone_sums *s)
+/* The same samples of a packed row (an XRGB8888 pixel read as one word). */
+SCALAR static void lin_packed(const coach_tone *t, const uint8_t *restrict p, int pk, int w,
+                              int row, tone_sums *s)
 {
     uint64_t acc = 0, n = 0;
     for (int x = PH16[row & 15]; x < w; x += 16, n++) {
-        uint32_t a;
-        memcpy(&a, p + 4 * (size_t)x, 4);
-        acc += (uint64_t)t->lin[0][(a >> SH_R) & 255u] + t->lin[1][(a >> SH_G) & 255u] +
-               t->lin[2][(a >> SH_B) & 255u];
+        int R, G, B;
+        load_px(p, pk, (size_t)x, &R, &G, &B);
+        acc += (uint64_t)t->lin[0][R] + t->lin[1][G] + t->lin[2][B];
     }
     s->lin += acc;
     s->nlin += n;
@@ -918,11 +927,10 @@ __attribute__((target("avx2"))) static void clip_avx2(const uint8_t *restrict y,
 #endif
 
 /* The kernels' two instances and the table the analyzer points at. */
+typedef void (*packed_fn)(const uint8_t *, int, int, uint8_t *, uint16_t *, uint16_t *,
+                          uint16_t *, uint16_t *, int, int, colour_sums *);
 struct tone_kernels {
-    void (*rgb24)(const uint8_t *, int, uint8_t *, uint8_t *, uint8_t *, uint8_t *);
-    void (*bgr24)(const uint8_t *, int, uint8_t *, uint8_t *, uint8_t *, uint8_t *);
-    void (*xrgb)(const uint8_t *, int, int, uint8_t *, uint16_t *, uint16_t *, uint16_t *,
-                 uint16_t *, int, int, colour_sums *);
+    packed_fn packed[3]; /* by PK_ layout */
     void (*yuyv)(const uint8_t *, int, const yuv_coef *, uint8_t *, uint8_t *, uint8_t *,
                  uint8_t *);
     void (*nv12)(const uint8_t *, const uint8_t *, int, const yuv_coef *, uint8_t *, uint8_t *,
@@ -935,24 +943,18 @@ struct tone_kernels {
     void (*clip)(const uint8_t *, int, tone_sums *);
 };
 
+#define PACKED_K(NAME, PK, ATTR)                                                                \
+    ATTR static void NAME(const uint8_t *restrict p, int x0, int x1, uint8_t *restrict y,       \
+                          uint16_t *restrict ar, uint16_t *restrict ag, uint16_t *restrict ab,  \
+                          uint16_t *restrict ay, int first, int acc, colour_sums *cs)           \
+    {                                                                                         \
+        packed_fused_k(p, PK, x0, x1, y, ar, ag, ab, ay, first, acc, cs);                      \
+    }
+
 #define TONE_KERNEL_SET(SUF, ATTR)                                                              \
-    ATTR static void krgb24_##SUF(const uint8_t *restrict p, int w, uint8_t *restrict r,        \
-                                 uint8_t *restrict g, uint8_t *restrict b, uint8_t *restrict y) \
-    {                                                                                         \
-        unpack_rgb24_k(p, w, r, g, b, y);                                                     \
-    }                                                                                         \
-    ATTR static void kbgr24_##SUF(const uint8_t *restrict p, int w, uint8_t *restrict r,        \
-                                 uint8_t *restrict g, uint8_t *restrict b, uint8_t *restrict y) \
-    {                                                                                         \
-        unpack_bgr24_k(p, w, r, g, b, y);                                                     \
-    }                                                                                         \
-    ATTR static void kxrgb_##SUF(const uint8_t *restrict p, int x0, int x1, uint8_t *restrict y, \
-                                uint16_t *restrict ar, uint16_t *restrict ag,                 \
-                                uint16_t *restrict ab, uint16_t *restrict ay, int first,      \
-                                int acc, colour_sums *cs)                                     \
-    {                                                                                         \
-        xrgb_fused_k(p, x0, x1, y, ar, ag, ab, ay, first, acc, cs);                           \
-    }                                                                                         \
+    PACKED_K(kxrgb_##SUF, PK_XRGB, ATTR)                                                      \
+    PACKED_K(krgb24_##SUF, PK_RGB24, ATTR)                                                    \
+    PACKED_K(kbgr24_##SUF, PK_BGR24, ATTR)                                                    \
     ATTR static void kyuyv_##SUF(const uint8_t *restrict p, int w, const yuv_coef *c,          \
                                 uint8_t *restrict r, uint8_t *restrict g, uint8_t *restrict b, \
                                 uint8_t *restrict y)                                          \
@@ -991,7 +993,7 @@ struct tone_kernels {
         clip_row_k(y, w, s);                                                                  \
     }                                                                                         \
     static const struct tone_kernels kernels_##SUF = {                                        \
-        krgb24_##SUF, kbgr24_##SUF, kxrgb_##SUF,   kyuyv_##SUF,    knv12_##SUF,                   \
+        { kxrgb_##SUF, krgb24_##SUF, kbgr24_##SUF }, kyuyv_##SUF,    knv12_##SUF,                   \
         kcolour_##SUF, kacc_##SUF,  klap_##SUF,    klap_sums_##SUF, kclip_##SUF,                 \
     };
 
@@ -1010,19 +1012,18 @@ static const struct tone_kernels *tone_kernels_pick(int simd)
     return &kernels_portable;
 }
 
-static void xrgb_span(const coach_tone *t, const uint8_t *p, int x0, int x1, uint8_t *y,
-                      uint16_t *ar, uint16_t *ag, uint16_t *ab, uint16_t *ay, int first, int acc,
-                      colour_sums *cs)
+static void packed_span(const coach_tone *t, int pk, const uint8_t *p, int x0, int x1,
+                        uint8_t *y, uint16_t *ar, uint16_t *ag, uint16_t *ab, uint16_t *ay,
+                        int first, int acc, colour_sums *cs)
 {
 #if TONE_AVX2
+    static const packed_fn simd[3] = { xrgb_avx2, rgb24_avx2, bgr24_avx2 };
     if (t->simd) {
-        xrgb_fused_avx2(p, x0, x1, y, ar, ag, ab, ay, first, acc, cs);
+        simd[pk](p, x0, x1, y, ar, ag, ab, ay, first, acc, cs);
         return;
     }
-#else
-    (void)t;
 #endif
-    t->k->xrgb(p, x0, x1, y, ar, ag, ab, ay, first, acc, cs);
+    t->k->packed[pk](p, x0, x1, y, ar, ag, ab, ay, first, acc, cs);
 }
 
 /* ---- the pass ---------------------------------------------------------- */
@@ -1077,7 +1078,11 @@ int coach_tone_run(coach_tone *t, const coach_frame *f, coach_result *out, coach
             const uint8_t *p = f->data + (size_t)f->stride * y;
             uint8_t *yr = ring[y % 3];
             uint8_t *r = t->r, *g = t->g, *b = t->b;
-            if (f->format == COACH_FMT_XRGB8888) {
+            const int pk = f->format == COACH_FMT_XRGB8888 ? PK_XRGB
+                           : f->format == COACH_FMT_RGB24  ? PK_RGB24
+                           : f->format == COACH_FMT_BGR24  ? PK_BGR24
+                                                           : -1;
+            if (pk >= 0) {
                 /* fused fast path; int32 sums exact over 4096 pixels */
                 int acc = y < bh, first = acc && y % scale == 0;
                 uint16_t *A = t->acc;
@@ -1086,20 +1091,19 @@ int coach_tone_run(coach_tone *t, const coach_frame *f, coach_result *out, coach
                     int a1 = acc ? (x1 < bw ? x1 : bw) : x0;
                     colour_sums cs = { 0, 0, 0, 0 };
                     if (a1 > x0)
-                        xrgb_span(t, p, x0, a1, yr, A, A + W, A + 2 * W, A + 3 * W, first, 1, &cs);
+                        packed_span(t, pk, p, x0, a1, yr, A, A + W, A + 2 * W, A + 3 * W, first,
+                                    1, &cs);
                     if (x1 > (a1 > x0 ? a1 : x0))
-                        xrgb_span(t, p, a1 > x0 ? a1 : x0, x1, yr, A, A + W, A + 2 * W, A + 3 * W,
-                                  0, 0, &cs);
+                        packed_span(t, pk, p, a1 > x0 ? a1 : x0, x1, yr, A, A + W, A + 2 * W,
+                                    A + 3 * W, 0, 0, &cs);
                     s.s_rg += cs.srg;
                     s.s_yb += cs.syb;
                     s.q_rg += (uint32_t)cs.qrg;
                     s.q_yb += (uint32_t)cs.qyb;
                 }
-                lin_xrgb(t, p, w, y, &s);
+                lin_packed(t, p, pk, w, y, &s);
             } else {
                 switch (f->format) {
-                case COACH_FMT_RGB24: t->k->rgb24(p, w, r, g, b, yr); break;
-                case COACH_FMT_BGR24: t->k->bgr24(p, w, r, g, b, yr); break;
                 case COACH_FMT_YUYV: t->k->yuyv(p, w, &yc, r, g, b, yr); break;
                 case COACH_FMT_NV12:
                     t->k->nv12(p, plane2 + (size_t)stride2 * (y / 2), w, &yc, r, g, b, yr);

@@ -518,9 +518,27 @@ static void test_sharpness_laplacian_reflect101(void **state)
     free((void *)f.data);
 }
 
-/* The hand-vectorised XRGB kernel and the portable loop are the same
- * integer arithmetic: identical histogram, statistics and analysis image
- * (the portable path is what machines without AVX2 run). */
+/* The hand-vectorised packed-pixel kernels and the portable loops are the
+ * same integer arithmetic: identical histogram, statistics and analysis
+ * image (the portable path is what machines without AVX2 run); and the
+ * same picture as XRGB8888, RGB24 or BGR24 gives identical results. */
+static void a_same_tone(const coach_result *r1, const coach_aimg *i1, const coach_result *r2,
+                        const coach_aimg *i2)
+{
+    assert_memory_equal(r1->hist, r2->hist, sizeof(r1->hist));
+    assert_true(r1->clip_high == r2->clip_high && r1->clip_low == r2->clip_low);
+    assert_true(r1->exposure_ev == r2->exposure_ev);
+    assert_true(r1->colourfulness == r2->colourfulness);
+    assert_true(r1->sharpness == r2->sharpness);
+    size_t n = (size_t)i1->w * i1->h * sizeof(float);
+    assert_memory_equal(i1->luma, i2->luma, n);
+    assert_memory_equal(i1->r, i2->r, n);
+    assert_memory_equal(i1->g, i2->g, n);
+    assert_memory_equal(i1->b, i2->b, n);
+    assert_memory_equal(i1->lap, i2->lap, n);
+    assert_memory_equal(i1->lap_sq, i2->lap_sq, n);
+}
+
 static void test_tone_simd_matches_portable(void **state)
 {
     (void)state;
@@ -532,29 +550,46 @@ static void test_tone_simd_matches_portable(void **state)
         uint32_t seed = 4242 + (uint32_t)k;
         const int w = sizes[k][0], h = sizes[k][1];
         coach_frame f = a_xrgb(w, h, a_random, &seed);
+        /* the same pixels packed as RGB24 and BGR24, rows exactly 3w bytes
+         * so the last row ends where the buffer does */
+        uint8_t *rgb = malloc((size_t)w * h * 3), *bgr = malloc((size_t)w * h * 3);
+        assert_non_null(rgb);
+        assert_non_null(bgr);
+        for (int y = 0; y < h; y++)
+            for (int x = 0; x < w; x++) {
+                const uint8_t *px = f.data + (size_t)y * f.stride + 4 * (size_t)x; /* B G R X */
+                uint8_t *o = rgb + ((size_t)y * w + x) * 3, *q = bgr + ((size_t)y * w + x) * 3;
+                o[0] = q[2] = px[2];
+                o[1] = q[1] = px[1];
+                o[2] = q[0] = px[0];
+            }
+        coach_frame fr = { .data = rgb, .w = w, .h = h, .stride = 3 * w, .format = COACH_FMT_RGB24 };
+        coach_frame fb = fr;
+        fb.data = bgr;
+        fb.format = COACH_FMT_BGR24;
+        const coach_frame *frames[3] = { &f, &fr, &fb };
         coach_tone *t1 = coach_tone_create(w, h), *t2 = coach_tone_create(w, h);
         assert_non_null(t1);
         assert_non_null(t2);
         coach_tone_set_simd(t1, 1);
         coach_tone_set_simd(t2, 0);
-        static coach_result r1, r2;
-        coach_aimg i1, i2;
-        assert_int_equal(coach_tone_run(t1, &f, &r1, &i1), 0);
-        assert_int_equal(coach_tone_run(t2, &f, &r2, &i2), 0);
-        assert_memory_equal(r1.hist, r2.hist, sizeof(r1.hist));
-        assert_true(r1.clip_high == r2.clip_high && r1.clip_low == r2.clip_low);
-        assert_true(r1.exposure_ev == r2.exposure_ev);
-        assert_true(r1.colourfulness == r2.colourfulness);
-        assert_true(r1.sharpness == r2.sharpness);
-        size_t n = (size_t)i1.w * i1.h * sizeof(float);
-        assert_memory_equal(i1.luma, i2.luma, n);
-        assert_memory_equal(i1.r, i2.r, n);
-        assert_memory_equal(i1.g, i2.g, n);
-        assert_memory_equal(i1.b, i2.b, n);
-        assert_memory_equal(i1.lap, i2.lap, n);
-        assert_memory_equal(i1.lap_sq, i2.lap_sq, n);
+        static coach_result r0, r1, r2;
+        coach_aimg i0, i1, i2;
+        coach_tone *t0 = coach_tone_create(w, h); /* keeps i0's planes */
+        assert_non_null(t0);
+        coach_tone_set_simd(t0, 0);
+        assert_int_equal(coach_tone_run(t0, &f, &r0, &i0), 0);
+        for (int fi = 0; fi < 3; fi++) {
+            assert_int_equal(coach_tone_run(t1, frames[fi], &r1, &i1), 0);
+            assert_int_equal(coach_tone_run(t2, frames[fi], &r2, &i2), 0);
+            a_same_tone(&r1, &i1, &r2, &i2); /* AVX2 == portable */
+            a_same_tone(&r0, &i0, &r2, &i2); /* layout does not matter */
+        }
+        coach_tone_destroy(t0);
         coach_tone_destroy(t1);
         coach_tone_destroy(t2);
+        free(rgb);
+        free(bgr);
         free((void *)f.data);
     }
 }
