@@ -13,7 +13,14 @@
  *
  * The window is MW x MH pixels taken from the middle of the analysis image
  * after an integer box reduction by k = max(1, w / 160), so the measurable
- * shift is up to MW/2 * k analysis pixels sideways per frame. */
+ * shift is up to MW/2 * k analysis pixels sideways per frame.
+ *
+ * Where the time goes (callgrind, bench build, 1080p harbour demo, per
+ * frame): 2.9 M instructions with the FFTs one pass per stage, a cosine
+ * per masked cell and the cross-power spectrum worked out at every
+ * frequency into a second array; 1.4 M now: the two 128x64 FFTs 0.42 M,
+ * preparing the two patches 0.6 M, the cross-power spectrum (half of it,
+ * in place) 0.15 M, the patch 0.1 M, the mask 0.02 M. */
 #include <math.h>
 #include <stdlib.h>
 #include <string.h>
@@ -42,9 +49,9 @@ struct coach_motion {
     float wm[MN];         /* subject mask weights, 0..1 */
     float ok[MN];         /* cells that count for the mean and texture */
     float *rowsum;        /* one analysis row of k rows summed (max_w) */
-    float prev_raw[MN];   /* previous reduced patch, unmasked (-1: outside) */
-    float cur_raw[MN];
-    float a[2 * MN], b[2 * MN];
+    float raw[2][MN];     /* reduced patches, unmasked (-1: outside): */
+    int cur;              /* raw[cur] this frame's, the other the previous */
+    float a[2 * MN];
     float scratch[2 * MN];
 };
 
@@ -108,15 +115,21 @@ static void take_patch(coach_motion *m, const float *luma, int w, int h, int k, 
             for (int xx = x0; xx < x1; xx++)
                 row[xx] += sj[xx];
         }
-        for (int x = 0; x < MW; x++) {
-            int rx = ox + x;
-            if (rx < 0 || rx >= rw) {
-                o[x] = -1.0f;
-                continue;
-            }
+        /* patch columns xa .. xb-1 lie inside the reduced image */
+        const int xa = ox < 0 ? -ox : 0, xb = ox + MW < rw ? MW : rw - ox;
+        for (int x = 0; x < xa; x++)
+            o[x] = -1.0f;
+        for (int x = xb; x < MW; x++)
+            o[x] = -1.0f;
+        if (k == 2) { /* the usual case (analysis images 320..479 wide) */
+            for (int x = xa; x < xb; x++)
+                o[x] = (row[2 * (ox + x)] + row[2 * (ox + x) + 1]) * inv;
+            continue;
+        }
+        for (int x = xa; x < xb; x++) {
             float acc = 0;
             for (int i = 0; i < k; i++)
-                acc += row[rx * k + i];
+                acc += row[(ox + x) * k + i];
             o[x] = acc * inv;
         }
     }
@@ -125,31 +138,46 @@ static void take_patch(coach_motion *m, const float *luma, int w, int h, int k, 
 /* Lowers the weights in wm (1 = use) around a box given in fractions of
  * the analysis image, grown by a quarter of its size on each side: 0 inside,
  * rising to 1 over RAMP cells outside along a raised cosine, so the mask
- * adds no sharp edges of its own to the spectrum. */
+ * adds no sharp edges of its own to the spectrum.  The distance is the
+ * larger of the distances along x and y and the ramp rises with it, so the
+ * weight is the larger of the ramps along x and y: MW + MH cosines, not one
+ * per cell. */
 static void mask_box(float *wm, const coach_box *bx, int w, int h, int k)
 {
     const int rw = w / k, rh = h / k;
     const int ox = (rw - MW) / 2, oy = (rh - MH) / 2;
     const double x0 = (bx->x - 0.75 * bx->w) * rw - ox, x1 = (bx->x + 0.75 * bx->w) * rw - ox;
     const double y0 = (bx->y - 0.75 * bx->h) * rh - oy, y1 = (bx->y + 0.75 * bx->h) * rh - oy;
+    float rx[MW];  /* ramp along x; > 1: outside the ramp (no change) */
+    int xa = MW, xb = 0; /* the columns with rx <= 1 */
+    for (int x = 0; x < MW; x++) {
+        double dx = x + 0.5 < x0 ? x0 - (x + 0.5) : x + 0.5 > x1 ? x + 0.5 - x1 : 0;
+        rx[x] = dx >= RAMP ? 2.0f : (float)(0.5 - 0.5 * cos(M_PI * dx / RAMP));
+        if (dx < RAMP) {
+            xa = x < xa ? x : xa;
+            xb = x + 1;
+        }
+    }
     for (int y = 0; y < MH; y++) {
         double dy = y + 0.5 < y0 ? y0 - (y + 0.5) : y + 0.5 > y1 ? y + 0.5 - y1 : 0;
         if (dy >= RAMP)
             continue;
-        for (int x = 0; x < MW; x++) {
-            double dx = x + 0.5 < x0 ? x0 - (x + 0.5) : x + 0.5 > x1 ? x + 0.5 - x1 : 0;
-            double d = dx > dy ? dx : dy;
-            if (d >= RAMP)
+        const float ry = (float)(0.5 - 0.5 * cos(M_PI * dy / RAMP));
+        float *row = wm + y * MW;
+        for (int x = xa; x < xb; x++) {
+            if (rx[x] > 1.0f)
                 continue;
-            float v = (float)(0.5 - 0.5 * cos(M_PI * d / RAMP));
-            if (v < wm[y * MW + x])
-                wm[y * MW + x] = v;
+            float v = rx[x] > ry ? rx[x] : ry;
+            if (v < row[x])
+                row[x] = v;
         }
     }
 }
 
 /* Mean-removed patch times the Hann window and the weights wm (cells
- * outside the image count as the mean); returns the texture: the mean
+ * outside the image count as the mean) into every second float of out
+ * (the real or the imaginary parts of an interleaved complex array);
+ * returns the texture: the mean
  * squared difference between neighbouring cells of full weight (0 when
  * too few are left). */
 static double prepare(coach_motion *m, const float *raw, const float *wm, float *out)
@@ -189,7 +217,6 @@ static double prepare(coach_motion *m, const float *raw, const float *wm, float 
     for (int i = 0; i < MN; i++) {
         float v = raw[i] >= 0 ? (raw[i] - mean) * wm[i] : 0.0f;
         out[2 * i] = v * m->win[i];
-        out[2 * i + 1] = 0;
     }
     return (double)tex / ntex;
 }
@@ -221,6 +248,32 @@ static double subpixel(double cm, double c0, double cp)
     return sgn * d;
 }
 
+/* The normalised cross-power spectrum R = A conj(B) / |A conj(B)| in place
+ * of z, the transform of a + i b.  R is Hermitian (two real signals), and
+ * the formula at -k gives exactly conj R(k), so each pair k, -k is worked
+ * out once from Z(k) and Z(-k) and written to both. */
+static void cross_power(float *z)
+{
+    for (int v = 0; v <= MH / 2; v++) {
+        const int vm = (MH - v) % MH;
+        const int ulast = (v == 0 || v == MH / 2) ? MW / 2 : MW - 1;
+        for (int u = 0; u <= ulast; u++) {
+            const int q = v * MW + u, qm = vm * MW + (MW - u) % MW;
+            float A[2], B[2];
+            coach_fft_split_pair(z, MW, MH, u, v, A, B);
+            float ar = A[0], ai = A[1], br = B[0], bi = -B[1]; /* conj B */
+            float re = ar * br - ai * bi, im = ar * bi + ai * br;
+            float mag = sqrtf(re * re + im * im) + 1e-20f;
+            re /= mag;
+            im /= mag;
+            z[2 * qm] = re; /* first: a self-paired k keeps its own value */
+            z[2 * qm + 1] = -im;
+            z[2 * q] = re;
+            z[2 * q + 1] = im;
+        }
+    }
+}
+
 int coach_motion_run(coach_motion *m, const float *luma, int w, int h, const coach_box *exclude,
                      double *dx, double *dy)
 {
@@ -230,7 +283,8 @@ int coach_motion_run(coach_motion *m, const float *luma, int w, int h, const coa
     int k = w / 160;
     if (k < 1)
         k = 1;
-    take_patch(m, luma, w, h, k, m->cur_raw);
+    const float *cur = m->raw[m->cur], *prev = m->raw[!m->cur];
+    take_patch(m, luma, w, h, k, m->raw[m->cur]);
     int measured = 0;
     if (m->have_prev && m->prev_k == k) {
         /* One soft mask for both frames over the subject's region in
@@ -241,27 +295,14 @@ int coach_motion_run(coach_motion *m, const float *luma, int w, int h, const coa
             mask_box(m->wm, exclude, w, h, k);
         if (m->prev_has_box)
             mask_box(m->wm, &m->prev_box, w, h, k);
-        double vb = prepare(m, m->prev_raw, m->wm, m->b);
-        double va = prepare(m, m->cur_raw, m->wm, m->a);
+        /* Both patches are real: one complex transform of a + i b gives
+         * both spectra (coach_fft_split_pair), so the previous patch goes
+         * into the imaginary parts. */
+        double vb = prepare(m, prev, m->wm, m->a + 1);
+        double va = prepare(m, cur, m->wm, m->a);
         if (va >= MIN_TEXTURE && vb >= MIN_TEXTURE) {
-            /* Both patches are real: one complex transform of a + i b gives
-             * both spectra, A(k) = (Z(k) + conj Z(-k)) / 2 and
-             * B(k) = (Z(k) - conj Z(-k)) / 2i. */
-            for (int i = 0; i < MN; i++)
-                m->a[2 * i + 1] = m->b[2 * i];
             coach_fft2d(&m->px, &m->py, m->a, m->scratch, 0);
-            for (int v = 0; v < MH; v++)
-                for (int u = 0; u < MW; u++) {
-                    int q = v * MW + u;
-                    float A[2], B[2];
-                    coach_fft_split_pair(m->a, MW, MH, u, v, A, B);
-                    float ar = A[0], ai = A[1], br = B[0], bi = -B[1]; /* conj B */
-                    float re = ar * br - ai * bi, im = ar * bi + ai * br;
-                    float mag = sqrtf(re * re + im * im) + 1e-20f;
-                    m->b[2 * q] = re / mag;
-                    m->b[2 * q + 1] = im / mag;
-                }
-            memcpy(m->a, m->b, sizeof m->a);
+            cross_power(m->a);
             coach_fft2d(&m->px, &m->py, m->a, m->scratch, 1);
             int bi = 0;
             float bv = -1e30f;
@@ -290,7 +331,7 @@ int coach_motion_run(coach_motion *m, const float *luma, int w, int h, const coa
         }
     }
 done:
-    memcpy(m->prev_raw, m->cur_raw, sizeof m->prev_raw);
+    m->cur = !m->cur;
     m->have_prev = 1;
     m->prev_k = k;
     m->prev_has_box = exclude != NULL;
