@@ -1,8 +1,10 @@
 /* The tone pass: one fused, row-wise walk over the full-resolution frame.
  *
  * For every row it unpacks the pixel format into planar 8-bit R', G', B' and
- * luma rows (small, L1-resident; XRGB8888, the common case, skips the planar
- * copies and works from the pixel words in one fused loop), then
+ * luma rows (small, L1-resident; the packed RGB layouts skip the planar
+ * copies and work from the pixels in one fused loop, and with AVX2 the
+ * Y'CbCr layouts do their unpacking, colour and block sums in one loop too),
+ * then
  *   - counts clipped pixels (every pixel) and the luma histogram (a
  *     quarter of them, see hist_row),
  *   - sums linear relative luminance through 256-entry sRGB LUTs (exposure;
@@ -42,10 +44,10 @@
  * this file asks for -O3 when optimising at all; on x86-64 the kernels are
  * also built a second time for AVX2 and picked when the analyzer is made
  * (tone_kernels below), which halves their cost on machines that have it
- * and changes no result (integer maths).  The hottest rows (XRGB8888
- * pixels, the Laplacian at even block widths, the clip counts) also have
- * hand-written AVX2 versions, chosen at run time and bit-identical to the
- * portable loops (tests/test_coach.c runs both).
+ * and changes no result (integer maths).  The hottest rows (packed RGB and
+ * Y'CbCr pixels, the Laplacian at even block widths, the clip counts) also
+ * have hand-written AVX2 versions, chosen at run time and bit-identical to
+ * the portable loops (tests/test_coach.c runs both).
  *
  * Where the time goes at 1080p on one core of the development machine
  * (callgrind instructions a frame, 18.5 M in all; 1.5-2.3 ms of thread
@@ -325,6 +327,58 @@ KBODY void packed_fused_k(const uint8_t *restrict p, int pk, int x0, int x1,
 }
 
 #if TONE_AVX2
+/* The colour sums of the fused AVX2 loops, per 32-bit lane. */
+typedef struct colour_vec { __m256i srg, syb, qrg, qyb; } colour_vec;
+
+/* 16 pixels' R', G', B' and luma in 16-bit lanes: their colour sums, and
+ * into the block column sums from column x on (the first row of a block
+ * assigns, later rows add). */
+__attribute__((target("avx2"))) static inline __attribute__((always_inline)) void
+colour_acc16(colour_vec *cv, __m256i R, __m256i G, __m256i B, __m256i Y, int x,
+             uint16_t *restrict ar, uint16_t *restrict ag, uint16_t *restrict ab,
+             uint16_t *restrict ay, int first, int acc)
+{
+    const __m256i one = _mm256_set1_epi16(1);
+    __m256i rg = _mm256_sub_epi16(R, G);
+    __m256i yb = _mm256_sub_epi16(_mm256_add_epi16(R, G), _mm256_add_epi16(B, B));
+    cv->srg = _mm256_add_epi32(cv->srg, _mm256_madd_epi16(rg, one));
+    cv->syb = _mm256_add_epi32(cv->syb, _mm256_madd_epi16(yb, one));
+    cv->qrg = _mm256_add_epi32(cv->qrg, _mm256_madd_epi16(rg, rg));
+    cv->qyb = _mm256_add_epi32(cv->qyb, _mm256_madd_epi16(yb, yb));
+    if (acc) {
+        __m256i *pr = (__m256i *)(ar + x), *pg = (__m256i *)(ag + x);
+        __m256i *pb = (__m256i *)(ab + x), *py = (__m256i *)(ay + x);
+        if (!first) {
+            R = _mm256_add_epi16(R, _mm256_loadu_si256(pr));
+            G = _mm256_add_epi16(G, _mm256_loadu_si256(pg));
+            B = _mm256_add_epi16(B, _mm256_loadu_si256(pb));
+            Y = _mm256_add_epi16(Y, _mm256_loadu_si256(py));
+        }
+        _mm256_storeu_si256(pr, R);
+        _mm256_storeu_si256(pg, G);
+        _mm256_storeu_si256(pb, B);
+        _mm256_storeu_si256(py, Y);
+    }
+}
+
+__attribute__((target("avx2"))) static void colour_reduce(const colour_vec *cv, colour_sums *cs)
+{
+    int32_t lane[8];
+    const __m256i sums[4] = { cv->srg, cv->syb, cv->qrg, cv->qyb };
+    int32_t tot[4] = { 0, 0, 0, 0 };
+    for (int k = 0; k < 4; k++) {
+        _mm256_storeu_si256((__m256i *)lane, sums[k]);
+        for (int i = 0; i < 8; i++)
+            tot[k] += lane[i];
+    }
+    cs->srg += tot[0];
+    cs->syb += tot[1];
+    cs->qrg += tot[2];
+    cs->qyb += tot[3];
+}
+#endif
+
+#if TONE_AVX2
 /* Bytes ahead to prefetch: frames arrive cold from the camera's DMA. */
 #define PREFETCH_AHEAD 2048
 /* The same loop by hand for AVX2, 16 pixels a step: the compiler's version
@@ -347,8 +401,9 @@ packed_avx2(const uint8_t *restrict p, int pk, int x0, int x1, uint8_t *restrict
     const size_t bpp = pk == PK_XRGB ? 4 : 3;
     const __m256i m255 = _mm256_set1_epi32(255), half = _mm256_set1_epi32(32768);
     const __m256i wr = _mm256_set1_epi32(LW_R), wg = _mm256_set1_epi32(LW_G),
-                  wb = _mm256_set1_epi32(LW_B), one = _mm256_set1_epi16(1);
-    __m256i srg = _mm256_setzero_si256(), syb = srg, qrg = srg, qyb = srg;
+                  wb = _mm256_set1_epi32(LW_B);
+    colour_vec cv = { _mm256_setzero_si256(), _mm256_setzero_si256(), _mm256_setzero_si256(),
+                      _mm256_setzero_si256() };
     int x = x0;
     for (; x + 16 <= x1; x += 16) {
         const uint8_t *q = p + bpp * (size_t)x;
@@ -382,39 +437,9 @@ packed_avx2(const uint8_t *restrict p, int pk, int x0, int x1, uint8_t *restrict
         __m256i Y = _mm256_permute4x64_epi64(_mm256_packus_epi32(y0, y1), 0xD8);
         __m256i y8 = _mm256_permute4x64_epi64(_mm256_packus_epi16(Y, Y), 0xD8);
         _mm_storeu_si128((__m128i *)(y + x), _mm256_castsi256_si128(y8));
-        __m256i rg = _mm256_sub_epi16(R, G);
-        __m256i yb = _mm256_sub_epi16(_mm256_add_epi16(R, G), _mm256_add_epi16(B, B));
-        srg = _mm256_add_epi32(srg, _mm256_madd_epi16(rg, one));
-        syb = _mm256_add_epi32(syb, _mm256_madd_epi16(yb, one));
-        qrg = _mm256_add_epi32(qrg, _mm256_madd_epi16(rg, rg));
-        qyb = _mm256_add_epi32(qyb, _mm256_madd_epi16(yb, yb));
-        if (acc) {
-            __m256i *pr = (__m256i *)(ar + x), *pg = (__m256i *)(ag + x);
-            __m256i *pb = (__m256i *)(ab + x), *py = (__m256i *)(ay + x);
-            if (!first) {
-                R = _mm256_add_epi16(R, _mm256_loadu_si256(pr));
-                G = _mm256_add_epi16(G, _mm256_loadu_si256(pg));
-                B = _mm256_add_epi16(B, _mm256_loadu_si256(pb));
-                Y = _mm256_add_epi16(Y, _mm256_loadu_si256(py));
-            }
-            _mm256_storeu_si256(pr, R);
-            _mm256_storeu_si256(pg, G);
-            _mm256_storeu_si256(pb, B);
-            _mm256_storeu_si256(py, Y);
-        }
+        colour_acc16(&cv, R, G, B, Y, x, ar, ag, ab, ay, first, acc);
     }
-    int32_t lane[8];
-    __m256i sums[4] = { srg, syb, qrg, qyb };
-    int32_t tot[4] = { 0, 0, 0, 0 };
-    for (int k = 0; k < 4; k++) {
-        _mm256_storeu_si256((__m256i *)lane, sums[k]);
-        for (int i = 0; i < 8; i++)
-            tot[k] += lane[i];
-    }
-    cs->srg += tot[0];
-    cs->syb += tot[1];
-    cs->qrg += tot[2];
-    cs->qyb += tot[3];
+    colour_reduce(&cv, cs);
     if (x < x1) /* the last few pixels */
         packed_fused_k(p, pk, x, x1, y, ar, ag, ab, ay, first, acc, cs);
 }
@@ -496,6 +521,140 @@ KBODY void unpack_nv12_k(const uint8_t *restrict py, const uint8_t *restrict pc,
     for (int i = 0; i < w / 2; i++)
         YUV_PAIR(py[2 * i], py[2 * i + 1], pc[2 * i], pc[2 * i + 1], i);
 }
+
+#if TONE_AVX2
+/* One Y'CbCr pixel (x of the row, its chroma pair x / 2) as the portable
+ * unpackers compute it: the same integers as YUV_PAIR. */
+static inline __attribute__((always_inline)) void
+yuv_px(const uint8_t *restrict p, const uint8_t *restrict pc, int nv12, const yuv_coef *c, int x,
+       int *R, int *G, int *B, int *Y)
+{
+    int Yv = nv12 ? p[x] : p[2 * x];
+    int cb = (nv12 ? pc[2 * (x / 2)] : p[4 * (x / 2) + 1]) - 128;
+    int cr = (nv12 ? pc[2 * (x / 2) + 1] : p[4 * (x / 2) + 3]) - 128;
+    int y_ = (Yv - c->y0) * c->ky;
+    *Y = clamp8_q14(y_);
+    *R = clamp8_q14(y_ + c->cr_r * cr);
+    *G = clamp8_q14(y_ - c->cr_g * cr - c->cb_g * cb);
+    *B = clamp8_q14(y_ + c->cb_b * cb);
+}
+
+/* YUYV and NV12 rows in one AVX2 loop, 16 pixels a step: R'G'B' and luma
+ * (written as planar rows: the exposure samples read them), the colour
+ * sums and the block column sums, as the portable unpack, colour and
+ * block loops compute them one after the other.  16-bit lanes hold
+ * Y' - y0 per pixel and (Cb, Cr) per pixel pair, so multiply-adds give the
+ * 32-bit Q14 terms: even and odd pixels' Y' ky by (ky, 0) and (0, ky), the
+ * chroma terms by (0, cr_r), (-cb_g, -cr_g) and (cb_b, 0) - cb_b can pass
+ * 32767 (limited range), so it is split in two multiply-adds.  The
+ * portable clamp8_q14 is an arithmetic shift, an interleave of the even
+ * and odd results and a clamp to 0..255. */
+__attribute__((target("avx2"))) static inline __attribute__((always_inline)) __m256i
+q14_pair(__m256i e, __m256i o)
+{
+    e = _mm256_srai_epi32(e, 14);
+    o = _mm256_slli_epi32(_mm256_srai_epi32(o, 14), 16);
+    __m256i v = _mm256_blend_epi16(e, o, 0xAA);
+    return _mm256_min_epi16(_mm256_max_epi16(v, _mm256_setzero_si256()), _mm256_set1_epi16(255));
+}
+
+/* The low 16 bytes of x's 16-bit lanes, saturated to bytes, in order. */
+__attribute__((target("avx2"))) static inline __attribute__((always_inline)) void
+store_bytes16(uint8_t *dst, __m256i x)
+{
+    __m256i b = _mm256_permute4x64_epi64(_mm256_packus_epi16(x, x), 0xD8);
+    _mm_storeu_si128((__m128i *)dst, _mm256_castsi256_si128(b));
+}
+
+__attribute__((target("avx2"))) static inline __attribute__((always_inline)) void
+yuv_avx2(const uint8_t *restrict p, const uint8_t *restrict pc, int nv12, const yuv_coef *c,
+         int x0, int x1, uint8_t *restrict r, uint8_t *restrict g, uint8_t *restrict b,
+         uint8_t *restrict y, uint16_t *restrict ar, uint16_t *restrict ag, uint16_t *restrict ab,
+         uint16_t *restrict ay, int first, int acc, colour_sums *cs)
+{
+    const int cbb_a = c->cb_b < 32767 ? c->cb_b : 32767, cbb_b = c->cb_b - cbb_a;
+    const __m256i w_ye = _mm256_set1_epi32(c->ky), w_yo = _mm256_set1_epi32(c->ky << 16);
+    const __m256i w_r = _mm256_set1_epi32((int)((uint32_t)c->cr_r << 16));
+    const __m256i w_g = _mm256_set1_epi32((int)((uint32_t)(-c->cr_g) << 16 | (uint16_t)(-c->cb_g)));
+    const __m256i w_ba = _mm256_set1_epi32(cbb_a), w_bb = _mm256_set1_epi32(cbb_b);
+    const __m256i yo = _mm256_set1_epi16((short)c->y0), c128 = _mm256_set1_epi16(128);
+    const __m256i round = _mm256_set1_epi32(8192), m00ff = _mm256_set1_epi16(255);
+    colour_vec cv = { _mm256_setzero_si256(), _mm256_setzero_si256(), _mm256_setzero_si256(),
+                      _mm256_setzero_si256() };
+    int32_t tsrg = 0, tsyb = 0, tqrg = 0, tqyb = 0;
+    int x = x0;
+#define YUV_TAIL_PX(X)                                                          \
+    do {                                                                      \
+        int R_, G_, B_, Y_;                                                   \
+        yuv_px(p, pc, nv12, c, (X), &R_, &G_, &B_, &Y_);                      \
+        r[X] = (uint8_t)R_;                                                   \
+        g[X] = (uint8_t)G_;                                                   \
+        b[X] = (uint8_t)B_;                                                   \
+        y[X] = (uint8_t)Y_;                                                   \
+        int rg_ = R_ - G_, yb_ = R_ + G_ - 2 * B_;                            \
+        tsrg += rg_;                                                          \
+        tsyb += yb_;                                                          \
+        tqrg += rg_ * rg_;                                                    \
+        tqyb += yb_ * yb_;                                                    \
+        if (acc) {                                                            \
+            ar[X] = (uint16_t)(first ? R_ : ar[X] + R_);                      \
+            ag[X] = (uint16_t)(first ? G_ : ag[X] + G_);                      \
+            ab[X] = (uint16_t)(first ? B_ : ab[X] + B_);                      \
+            ay[X] = (uint16_t)(first ? Y_ : ay[X] + Y_);                      \
+        }                                                                     \
+    } while (0)
+    if (x & 1) { /* a span may start inside a chroma pair */
+        YUV_TAIL_PX(x);
+        x++;
+    }
+    for (; x + 16 <= x1; x += 16) {
+        __m256i Y16, C16;
+        if (nv12) {
+            Y16 = _mm256_cvtepu8_epi16(_mm_loadu_si128((const __m128i *)(p + x)));
+            C16 = _mm256_cvtepu8_epi16(_mm_loadu_si128((const __m128i *)(pc + x)));
+        } else {
+            __m256i v = _mm256_loadu_si256((const __m256i *)(p + 2 * (size_t)x));
+            Y16 = _mm256_and_si256(v, m00ff);
+            C16 = _mm256_srli_epi16(v, 8);
+        }
+        Y16 = _mm256_sub_epi16(Y16, yo);
+        C16 = _mm256_sub_epi16(C16, c128); /* (Cb, Cr) of each pixel pair */
+        __m256i ye = _mm256_add_epi32(_mm256_madd_epi16(Y16, w_ye), round);
+        __m256i yod = _mm256_add_epi32(_mm256_madd_epi16(Y16, w_yo), round);
+        __m256i dr = _mm256_madd_epi16(C16, w_r), dg = _mm256_madd_epi16(C16, w_g);
+        __m256i db = _mm256_add_epi32(_mm256_madd_epi16(C16, w_ba), _mm256_madd_epi16(C16, w_bb));
+        __m256i Y = q14_pair(ye, yod);
+        __m256i R = q14_pair(_mm256_add_epi32(ye, dr), _mm256_add_epi32(yod, dr));
+        __m256i G = q14_pair(_mm256_add_epi32(ye, dg), _mm256_add_epi32(yod, dg));
+        __m256i B = q14_pair(_mm256_add_epi32(ye, db), _mm256_add_epi32(yod, db));
+        store_bytes16(y + x, Y);
+        store_bytes16(r + x, R);
+        store_bytes16(g + x, G);
+        store_bytes16(b + x, B);
+        colour_acc16(&cv, R, G, B, Y, x, ar, ag, ab, ay, first, acc);
+    }
+    for (; x < x1; x++)
+        YUV_TAIL_PX(x);
+#undef YUV_TAIL_PX
+    cs->srg += tsrg;
+    cs->syb += tsyb;
+    cs->qrg += tqrg;
+    cs->qyb += tqyb;
+    colour_reduce(&cv, cs);
+}
+
+__attribute__((target("avx2"))) static void
+yuv_span_avx2(const uint8_t *restrict p, const uint8_t *restrict pc, int nv12, const yuv_coef *c,
+              int x0, int x1, uint8_t *restrict r, uint8_t *restrict g, uint8_t *restrict b,
+              uint8_t *restrict y, uint16_t *restrict ar, uint16_t *restrict ag,
+              uint16_t *restrict ab, uint16_t *restrict ay, int first, int acc, colour_sums *cs)
+{
+    if (nv12)
+        yuv_avx2(p, pc, 1, c, x0, x1, r, g, b, y, ar, ag, ab, ay, first, acc, cs);
+    else
+        yuv_avx2(p, pc, 0, c, x0, x1, r, g, b, y, ar, ag, ab, ay, first, acc, cs);
+}
+#endif
 
 /* ---- per-row statistics ------------------------------------------------ */
 
@@ -1082,32 +1241,44 @@ int coach_tone_run(coach_tone *t, const coach_frame *f, coach_result *out, coach
                            : f->format == COACH_FMT_RGB24  ? PK_RGB24
                            : f->format == COACH_FMT_BGR24  ? PK_BGR24
                                                            : -1;
-            if (pk >= 0) {
-                /* fused fast path; int32 sums exact over 4096 pixels */
+            const int yuv = f->format == COACH_FMT_YUYV || f->format == COACH_FMT_NV12;
+            const uint8_t *pc = /* NV12 chroma row */
+                f->format == COACH_FMT_NV12 ? plane2 + (size_t)stride2 * (y / 2) : NULL;
+            if (pk >= 0 || (TONE_AVX2 && t->simd && yuv)) {
+                /* fused fast paths; int32 sums exact over 4096 pixels */
                 int acc = y < bh, first = acc && y % scale == 0;
                 uint16_t *A = t->acc;
                 for (int x0 = 0; x0 < w; x0 += 4096) {
                     int x1 = x0 + 4096 < w ? x0 + 4096 : w;
                     int a1 = acc ? (x1 < bw ? x1 : bw) : x0;
                     colour_sums cs = { 0, 0, 0, 0 };
-                    if (a1 > x0)
-                        packed_span(t, pk, p, x0, a1, yr, A, A + W, A + 2 * W, A + 3 * W, first,
-                                    1, &cs);
-                    if (x1 > (a1 > x0 ? a1 : x0))
-                        packed_span(t, pk, p, a1 > x0 ? a1 : x0, x1, yr, A, A + W, A + 2 * W,
-                                    A + 3 * W, 0, 0, &cs);
+                    for (int part = 0; part < 2; part++) { /* in the blocks, then not */
+                        int xa = part ? (a1 > x0 ? a1 : x0) : x0, xb = part ? x1 : a1;
+                        if (xb <= xa)
+                            continue;
+                        if (pk >= 0)
+                            packed_span(t, pk, p, xa, xb, yr, A, A + W, A + 2 * W, A + 3 * W,
+                                        first, !part, &cs);
+#if TONE_AVX2
+                        else
+                            yuv_span_avx2(p, pc, f->format == COACH_FMT_NV12, &yc, xa, xb, r, g,
+                                          b, yr, A, A + W, A + 2 * W, A + 3 * W, first, !part,
+                                          &cs);
+#endif
+                    }
                     s.s_rg += cs.srg;
                     s.s_yb += cs.syb;
                     s.q_rg += (uint32_t)cs.qrg;
                     s.q_yb += (uint32_t)cs.qyb;
                 }
-                lin_packed(t, p, pk, w, y, &s);
+                if (pk >= 0)
+                    lin_packed(t, p, pk, w, y, &s);
+                else
+                    lin_row(t, r, g, b, w, 0, y, &s);
             } else {
                 switch (f->format) {
                 case COACH_FMT_YUYV: t->k->yuyv(p, w, &yc, r, g, b, yr); break;
-                case COACH_FMT_NV12:
-                    t->k->nv12(p, plane2 + (size_t)stride2 * (y / 2), w, &yc, r, g, b, yr);
-                    break;
+                case COACH_FMT_NV12: t->k->nv12(p, pc, w, &yc, r, g, b, yr); break;
                 default: /* GREY: the luma is the picture (full range, as V4L2 GREY) */
                     memcpy(yr, p, (size_t)w);
                     r = g = b = yr;

@@ -594,6 +594,47 @@ static void test_tone_simd_matches_portable(void **state)
     }
 }
 
+/* The AVX2 Y'CbCr loop and the portable unpack, colour and block loops:
+ * identical results for YUYV and NV12 in both matrices and ranges, on
+ * random bytes (every byte pattern is a valid frame, including chroma far
+ * outside the gamut, which exercises the clamps).  1204 = 3 * 401 + 1:
+ * blocks end at the odd column 1203, inside a chroma pair. */
+static void test_tone_yuv_simd_matches_portable(void **state)
+{
+    (void)state;
+    static const int sizes[][2] = { { 1204, 77 }, { 1282, 45 }, { 1924, 26 } };
+    for (size_t k = 0; k < 3; k++) {
+        const int w = sizes[k][0], h = sizes[k][1];
+        size_t n = (size_t)w * h * 2;
+        uint8_t *buf = malloc(n);
+        assert_non_null(buf);
+        uint32_t st = 99 + (uint32_t)k;
+        for (size_t i = 0; i < n; i++) {
+            st = st * 1664525u + 1013904223u;
+            buf[i] = (uint8_t)(st >> 24);
+        }
+        coach_tone *t1 = coach_tone_create(w, h), *t2 = coach_tone_create(w, h);
+        assert_non_null(t1);
+        assert_non_null(t2);
+        coach_tone_set_simd(t1, 1);
+        coach_tone_set_simd(t2, 0);
+        for (int v = 0; v < 4; v++) {
+            coach_frame f = { .data = buf, .w = w, .h = h, .stride = v & 1 ? w : 2 * w,
+                              .format = v & 1 ? COACH_FMT_NV12 : COACH_FMT_YUYV,
+                              .matrix = v & 2 ? COACH_MATRIX_BT709 : COACH_MATRIX_BT601,
+                              .range = v & 2 ? COACH_RANGE_LIMITED : COACH_RANGE_FULL };
+            static coach_result r1, r2;
+            coach_aimg i1, i2;
+            assert_int_equal(coach_tone_run(t1, &f, &r1, &i1), 0);
+            assert_int_equal(coach_tone_run(t2, &f, &r2, &i2), 0);
+            a_same_tone(&r1, &i1, &r2, &i2);
+        }
+        coach_tone_destroy(t1);
+        coach_tone_destroy(t2);
+        free(buf);
+    }
+}
+
 /* ---- score ---- */
 
 /* A first-order low-pass of time constant tau answers a unit step with
@@ -1790,6 +1831,7 @@ int main(void)
         cmocka_unit_test(test_colourfulness_word_categories),
         cmocka_unit_test(test_sharpness_laplacian_reflect101),
         cmocka_unit_test(test_tone_simd_matches_portable),
+        cmocka_unit_test(test_tone_yuv_simd_matches_portable),
         cmocka_unit_test(test_score_smoothing_step_response),
         cmocka_unit_test(test_ready_hysteresis_no_flicker),
         cmocka_unit_test(test_score_hints_worst_first),
