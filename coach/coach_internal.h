@@ -3,6 +3,9 @@
 #define VFCOACH_COACH_INTERNAL_H
 
 #include "coach/coach.h"
+#ifdef __SSE2__
+#include <xmmintrin.h>
+#endif
 
 /* The downscaled analysis image the tone pass builds from the full frame.
  * Each analysis pixel is the box mean of a scale x scale block of the full
@@ -125,6 +128,29 @@ static inline int coach_cpu_avx2(void)
 #define COACH_AVX2 0
 static inline int coach_cpu_avx2(void) { return 0; }
 #endif
+
+/* Sum of a[0 .. n-1] in four interleaved lanes (element i into lane
+ * i % 4), the lanes added last: a fixed order, the same with or without
+ * vector units, that runs four at a time; one running float sum is a
+ * chain of dependent additions that cannot. */
+static inline float coach_sum4(const float *a, int n)
+{
+    float l[4] = {0, 0, 0, 0};
+    int i = 0;
+#ifdef __SSE2__
+    __m128 v = _mm_setzero_ps();
+    for (; i + 4 <= n; i += 4)
+        v = _mm_add_ps(v, _mm_loadu_ps(a + i));
+    _mm_storeu_ps(l, v);
+#else
+    for (; i + 4 <= n; i += 4)
+        for (int j = 0; j < 4; j++)
+            l[j] += a[i + j];
+#endif
+    for (; i < n; i++)
+        l[i & 3] += a[i];
+    return ((l[0] + l[1]) + l[2]) + l[3];
+}
 
 /* Power-of-two complex FFT plan, no allocation (compose_fft.c). */
 #define COACH_FFT_MAX 128

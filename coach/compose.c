@@ -116,21 +116,11 @@ static void subject_focus(const coach_aimg *img, const coach_box *b, coach_resul
     double s1 = 0, s2 = 0, b1 = 0, b2 = 0;
     for (int y = 0; y < h; y++) {
         const float *l1 = img->lap + (size_t)y * w, *l2 = img->lap_sq + (size_t)y * w;
-        float r1 = 0, r2 = 0;
-        for (int x = 0; x < w; x++) {
-            r1 += l1[x];
-            r2 += l2[x];
-        }
-        s1 += r1;
-        s2 += r2;
+        s1 += coach_sum4(l1, w);
+        s2 += coach_sum4(l2, w);
         if (y >= y0 && y <= y1) {
-            float q1 = 0, q2 = 0;
-            for (int x = x0; x <= x1; x++) {
-                q1 += l1[x];
-                q2 += l2[x];
-            }
-            b1 += q1;
-            b2 += q2;
+            b1 += coach_sum4(l1 + x0, x1 - x0 + 1);
+            b2 += coach_sum4(l2 + x0, x1 - x0 + 1);
         }
     }
     const double n = (double)w * h, nb = (double)(x1 - x0 + 1) * (y1 - y0 + 1);
