@@ -57,8 +57,9 @@ typedef struct region {
 struct coach_saliency {
     int max_w, max_h;
     coach_fft_plan plan;
-    float *rows;           /* N x max_w x 4: the planes resampled down the
-                              columns, interleaved (luma, r, g, b per pixel) */
+    float *rows;           /* the planes resampled down the columns: one row
+                              of 4 x max_w, interleaved (luma, r, g, b per
+                              pixel); N x max_w for one plane without SSE */
     int span_w, span_h;    /* the size the spans below were made for       */
     span sx[N], sy[N];
     float small[NN];       /* luma at N x N                              */
@@ -209,7 +210,7 @@ static void resample4(coach_saliency *s, const float *const src[4], int w, int h
     const __m128 vay = _mm_set1_ps(ay), vax = _mm_set1_ps(ax), one = _mm_set1_ps(1.0f);
     for (int j = 0; j < N; j++) {
         const span *p = &s->sy[j];
-        float *restrict o = s->rows + (size_t)j * w * 4;
+        float *restrict o = s->rows; /* one row: it stays in the L1 cache */
         const float w0 = p->w0 * ay, w1 = p->w1 * ay;
         const __m128 vw0 = _mm_set1_ps(w0), vw1 = _mm_set1_ps(w1);
         const size_t o0 = (size_t)p->i0 * w, o1 = (size_t)p->i1 * w;
@@ -235,20 +236,19 @@ static void resample4(coach_saliency *s, const float *const src[4], int w, int h
                 }
                 o[4 * x + c] = acc;
             }
-    }
-    for (int y = 0; y < N; y++) {
-        const float *r = s->rows + (size_t)y * w * 4;
-        for (int j = 0; j < N; j += 4) {
+        /* this output row along the rows at once, while it is in cache */
+        const float *r = s->rows;
+        for (int jx = 0; jx < N; jx += 4) {
             __m128 v[4];
             for (int q = 0; q < 4; q++) {
-                const span *p = &s->sx[j + q];
-                __m128 acc = span_sum(r + 4 * p->i0, r + 4 * p->i1, 4, p->i1 - p->i0 - 1,
-                                      _mm_set1_ps(p->w0), one, _mm_set1_ps(p->w1));
+                const span *sp = &s->sx[jx + q];
+                __m128 acc = span_sum(r + 4 * sp->i0, r + 4 * sp->i1, 4, sp->i1 - sp->i0 - 1,
+                                      _mm_set1_ps(sp->w0), one, _mm_set1_ps(sp->w1));
                 v[q] = _mm_mul_ps(acc, vax);
             }
             _MM_TRANSPOSE4_PS(v[0], v[1], v[2], v[3]);
             for (int c = 0; c < 4; c++)
-                _mm_storeu_ps(dst[c] + (size_t)y * N + j, v[c]);
+                _mm_storeu_ps(dst[c] + (size_t)j * N + jx, v[c]);
         }
     }
 }
