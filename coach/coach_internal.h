@@ -203,6 +203,10 @@ typedef struct coach_level_est {
 coach_level *coach_level_create(int max_w, int max_h);
 void coach_level_destroy(coach_level *l);
 void coach_level_run(coach_level *l, const float *luma, int w, int h, coach_level_est *out);
+/* Chooses the AVX2 copy of the Sobel pass (1, the default where the CPU
+ * has it) or the portable one (0); returns the previous choice.  For
+ * tests: both must give identical results. */
+int coach_level_set_simd(coach_level *l, int on);
 
 /* Spectral residual saliency at COACH_SAL_N x COACH_SAL_N (saliency.c). */
 #define COACH_SAL_N 64

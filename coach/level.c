@@ -118,6 +118,13 @@ coach_level *coach_level_create(int max_w, int max_h)
     return l;
 }
 
+int coach_level_set_simd(coach_level *l, int on)
+{
+    int had = l->simd;
+    l->simd = on && coach_cpu_avx2();
+    return had;
+}
+
 void coach_level_destroy(coach_level *l)
 {
     if (!l)
