@@ -166,6 +166,14 @@ int coach_fft_plan_init(coach_fft_plan *p, int n);
  * scratch holds as many; the inverse is unscaled. */
 void coach_fft2d(const coach_fft_plan *px, const coach_fft_plan *py, float *data, float *scratch,
                  int inverse);
+/* The same in halves that skip the transposes a forward and an inverse
+ * transform in a row make undone: coach_fft2d_fwd_t leaves the spectrum
+ * of data (overwritten) transposed in out, px->n rows of py->n (frequency
+ * (u, v) at out[u * py->n + v]); coach_fft2d_inv_t takes such a spectrum
+ * (overwritten) back to py->n rows of px->n in out, unscaled, running the
+ * x transforms first (the same up to float rounding). */
+void coach_fft2d_fwd_t(const coach_fft_plan *px, const coach_fft_plan *py, float *data, float *out);
+void coach_fft2d_inv_t(const coach_fft_plan *px, const coach_fft_plan *py, float *spec, float *out);
 
 /* Two real w x h signals a and b transformed together as z = a + i b: reads
  * their spectra A(u,v) = (Z(k) + conj Z(-k)) / 2 and B(u,v) = (Z(k) - conj

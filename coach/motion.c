@@ -322,18 +322,18 @@ static double subpixel(double cm, double c0, double cp)
 }
 
 /* The normalised cross-power spectrum R = A conj(B) / |A conj(B)| in place
- * of z, the transform of a + i b.  R is Hermitian (two real signals), and
- * the formula at -k gives exactly conj R(k), so each pair k, -k is worked
- * out once from Z(k) and Z(-k) and written to both. */
-static void cross_power(float *z)
+ * of z (cw x ch), the transform of a + i b.  R is Hermitian (two real
+ * signals), and the formula at -k gives exactly conj R(k), so each pair
+ * k, -k is worked out once from Z(k) and Z(-k) and written to both. */
+static void cross_power(float *z, int cw, int ch)
 {
-    for (int v = 0; v <= MH / 2; v++) {
-        const int vm = (MH - v) % MH;
-        const int ulast = (v == 0 || v == MH / 2) ? MW / 2 : MW - 1;
+    for (int v = 0; v <= ch / 2; v++) {
+        const int vm = (ch - v) % ch;
+        const int ulast = (v == 0 || v == ch / 2) ? cw / 2 : cw - 1;
         for (int u = 0; u <= ulast; u++) {
-            const int q = v * MW + u, qm = vm * MW + (MW - u) % MW;
+            const int q = v * cw + u, qm = vm * cw + (cw - u) % cw;
             float A[2], B[2];
-            coach_fft_split_pair(z, MW, MH, u, v, A, B);
+            coach_fft_split_pair(z, cw, ch, u, v, A, B);
             float ar = A[0], ai = A[1], br = B[0], bi = -B[1]; /* conj B */
             float re = ar * br - ai * bi, im = ar * bi + ai * br;
             float mag = sqrtf(re * re + im * im) + 1e-20f;
@@ -376,9 +376,11 @@ int coach_motion_run(coach_motion *m, const float *luma, int w, int h, const coa
         double va = prepare(m, cur, m->wm, &ma);
         if (va >= MIN_TEXTURE && vb >= MIN_TEXTURE) {
             interleave(m, cur, ma, prev, mb);
-            coach_fft2d(&m->px, &m->py, m->a, m->scratch, 0);
-            cross_power(m->a);
-            coach_fft2d(&m->px, &m->py, m->a, m->scratch, 1);
+            /* the spectrum stays transposed (MW rows of MH) between the
+             * two transforms: two transposes fewer */
+            coach_fft2d_fwd_t(&m->px, &m->py, m->a, m->scratch);
+            cross_power(m->scratch, MH, MW);
+            coach_fft2d_inv_t(&m->px, &m->py, m->scratch, m->a);
             int bi = 0;
             float bv = -1e30f;
             for (int i = 0; i < MN; i++)

@@ -352,8 +352,9 @@ static void blur5(float *m, float *pad)
     }
 }
 
-/* The spectrum of the periodic component of s->small into s->cx.  The DFT
- * treats the image as a tile of a periodic pattern; where its opposite
+/* The spectrum of the periodic component of s->small into s->cx
+ * (transposed: see below).  The DFT treats the image as a tile of a
+ * periodic pattern; where its opposite
  * borders differ (sky above, sea below, a tilted horizon meeting the sides)
  * the seams add a cross of energy along the axes that the spectral residual
  * would show as salient stripes at the borders, taken for intrusions.  The
@@ -379,13 +380,18 @@ static void periodic_spectrum(coach_saliency *s)
         s->cx[2 * (y * N) + 1] += d;
         s->cx[2 * (y * N + N - 1) + 1] -= d;
     }
-    coach_fft2d(&s->plan, &s->plan, s->cx, s->scratch, 0);
-    float *out = s->scratch;
+    /* The spectrum comes out transposed (frequency (u, v) at v + N u) and
+     * stays so until the inverse transform: two transposes fewer.  Every
+     * step up to there is symmetric in u and v (the box mean below keeps
+     * its order of additions). */
+    coach_fft2d_fwd_t(&s->plan, &s->plan, s->cx, s->scratch);
+    const float *z = s->scratch;
+    float *out = s->cx;
     for (int q = 0; q < N; q++)
         for (int r = 0; r < N; r++) {
             int k = q * N + r;
             float U[2], V[2];
-            coach_fft_split_pair(s->cx, N, N, r, q, U, V);
+            coach_fft_split_pair(z, N, N, r, q, U, V);
             float ur = U[0], ui = U[1], vr = V[0], vi = V[1];
             float den = s->cos2[q] + s->cos2[r] - 4.0f;
             if (k == 0) {
@@ -396,7 +402,6 @@ static void periodic_spectrum(coach_saliency *s)
                 out[2 * k + 1] = ui - vi / den;
             }
         }
-    memcpy(s->cx, out, sizeof s->cx);
 }
 
 /* The spectral residual map of s->small; 0 when the image is blank. */
@@ -423,8 +428,9 @@ static int spectral_residual(coach_saliency *s)
         const float *a = s->pad + (size_t)(y + 1) * (N + 4) + 1;
         for (int x = 0; x < N; x++) {
             const float *q = a + x;
-            s->lb[y * N + x] = (q[0] + q[1] + q[2] + q[N + 4] + q[N + 5] + q[N + 6] +
-                                q[2 * N + 8] + q[2 * N + 9] + q[2 * N + 10]) * (1.0f / 9.0f);
+            /* column by column: the row-by-row order of the untransposed map */
+            s->lb[y * N + x] = (q[0] + q[N + 4] + q[2 * N + 8] + q[1] + q[N + 5] + q[2 * N + 9] +
+                                q[2] + q[N + 6] + q[2 * N + 10]) * (1.0f / 9.0f);
         }
     }
     /* the residual's amplitude, then the spectrum rescaled to it keeping
@@ -461,9 +467,9 @@ static int spectral_residual(coach_saliency *s)
         }
     }
 #endif
-    coach_fft2d(&s->plan, &s->plan, s->cx, s->scratch, 1);
+    coach_fft2d_inv_t(&s->plan, &s->plan, s->cx, s->scratch);
     for (int i = 0; i < NN; i++) {
-        float re = s->cx[2 * i], im = s->cx[2 * i + 1];
+        float re = s->scratch[2 * i], im = s->scratch[2 * i + 1];
         s->map[i] = re * re + im * im;
     }
     blur5(s->map, s->pad);
