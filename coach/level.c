@@ -198,8 +198,9 @@ __attribute__((target("avx2"))) static void sobel_avx2(const float *p, int w, in
  * every second row. */
 static float gradients(coach_level *l, const float *p, int w, int h, float *vote_thr)
 {
-    uint32_t hist[64];
+    uint32_t hist[64], hist4[4][64];
     memset(hist, 0, sizeof hist);
+    memset(hist4, 0, sizeof hist4);
     memset(l->gx, 0, (size_t)w * sizeof(float));
     memset(l->gy, 0, (size_t)w * sizeof(float));
     memset(l->mag, 0, (size_t)w * sizeof(float));
@@ -225,10 +226,12 @@ static float gradients(coach_level *l, const float *p, int w, int h, float *vote
             int32_t bins[4];
             _mm_storeu_si128((__m128i *)bins,
                              _mm_cvttps_epi32(_mm_min_ps(_mm_mul_ps(_mm_sqrt_ps(ev), half), top)));
-            hist[bins[0]]++;
-            hist[bins[1]]++;
-            hist[bins[2]]++;
-            hist[bins[3]]++;
+            /* a histogram per lane: neighbours mostly share a bin, and
+             * counting them into one cell waits on each previous count */
+            hist4[0][bins[0]]++;
+            hist4[1][bins[1]]++;
+            hist4[2][bins[2]]++;
+            hist4[3][bins[3]]++;
             total += 4;
         }
 #endif
@@ -238,6 +241,8 @@ static float gradients(coach_level *l, const float *p, int w, int h, float *vote
             total++;
         }
     }
+    for (int b = 0; b < 64; b++)
+        hist[b] += hist4[0][b] + hist4[1][b] + hist4[2][b] + hist4[3][b];
     uint32_t acc = 0;
     int med = 0;
     while (med < 63 && acc + hist[med] < total / 2)
