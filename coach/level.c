@@ -529,9 +529,9 @@ static int find_peaks(const coach_level *l, int fam, int nrho, float min_votes, 
     const __m128 mv4 = _mm_set1_ps(min_votes);
 #endif
     for (int i = 0; i < NANG; i++) {
-        const float *row = acc + (size_t)i * nrho;
         int r = 1;
 #ifdef __SSE2__
+        const float *row = acc + (size_t)i * nrho;
         for (; r + 8 <= nrho - 1; r += 8)
             for (unsigned bits = at_least8(row + r, mv4); bits; bits &= bits - 1)
                 nc = peak_at(acc, nrho, i, r + __builtin_ctz(bits), min_votes, cand, nc);
