@@ -10,14 +10,19 @@
 #include "coach/coach_internal.h"
 
 /* Lead room needs the subject to move across the scene at least this fast
- * (frame widths per second) — slower drift is not a direction of travel. */
+ * along an axis (frame widths, or heights, per second) — slower drift is
+ * not a direction of travel. */
 #define LEAD_MIN_SPEED 0.03
 /* Track length the subject's velocity is fitted over, seconds, and the
  * ring that holds it (30 fps for a second, with room). */
 #define LEAD_WINDOW_S 1.0
 #define LEAD_HIST 48
 
-typedef struct lead_sample { double t, x, ximg, y; } lead_sample;
+typedef struct lead_sample {
+    double t;
+    double x, y;       /* in the scene: image position minus the camera's pan */
+    double ximg, yimg; /* in the image                                      */
+} lead_sample;
 /* A centre jump larger than this (fraction of the frame) between frames
  * means another region won: restart the track. */
 #define TRACK_JUMP 0.15
@@ -32,7 +37,8 @@ struct coach_compose {
     /* subject track */
     lead_sample track[LEAD_HIST];  /* ring of the subject's recent positions */
     int track_n, track_head;
-    double pan_x;                  /* accumulated camera shift, frame widths */
+    double pan_x, pan_y;           /* accumulated camera shift, frame widths
+                                      and heights */
     double t_prev;
     int have_t;
 };
@@ -71,7 +77,7 @@ void coach_compose_reset(coach_compose *c)
     coach_motion_reset(c->motion);
     c->track_n = 0;
     c->track_head = 0;
-    c->pan_x = 0;
+    c->pan_x = c->pan_y = 0;
     c->have_t = 0;
 }
 
@@ -132,18 +138,61 @@ static void subject_focus(const coach_aimg *img, const coach_box *b, coach_resul
     out->subject_focus = (var_box > 0 ? var_box : 0) / var_all;
 }
 
-/* Lead room: the subject's horizontal velocity relative to the scene
- * decides which side is "ahead"; lead room is the share of the free width
- * that lies ahead of the subject's box.  Positions are tracked in scene
- * coordinates (the image position minus the accumulated camera shift, so
- * panning with a moving subject still counts), and the velocity is the
- * least-squares slope over the last LEAD_WINDOW_S seconds: it must exceed
- * LEAD_MIN_SPEED and three standard errors, so the jitter of the detected
- * centre does not make a direction out of a subject that stands still. */
-static void lead_room(coach_compose *c, double t, int measured, double shift_fx, coach_result *out)
+/* Velocity of one coordinate of the track (scene units per second) into
+ * *v: the least-squares slope over the last LEAD_WINDOW_S seconds, or 0
+ * when it is under LEAD_MIN_SPEED or three standard errors, so the jitter
+ * of the detected centre does not make a direction out of a subject that
+ * stands still.  Returns 0 when the track is too short to tell (fewer than
+ * 6 samples or under ~0.15 s), else 1. */
+static int track_speed(const coach_compose *c, double t, int use_y, double *v)
 {
-    if (measured)
+    *v = 0;
+    double S = 0, St = 0, Sv = 0, Stt = 0, Stv = 0;
+    int n = 0;
+    for (int i = 0; i < c->track_n; i++) {
+        const lead_sample *q = &c->track[(c->track_head + LEAD_HIST - 1 - i) % LEAD_HIST];
+        if (t - q->t > LEAD_WINDOW_S)
+            break;
+        double tt = q->t - t, pos = use_y ? q->y : q->x;
+        S += 1;
+        St += tt;
+        Sv += pos;
+        Stt += tt * tt;
+        Stv += tt * pos;
+        n++;
+    }
+    double den = S * Stt - St * St;
+    if (n < 6 || den <= 0 || Stt / S - (St / S) * (St / S) < 0.04 * 0.04)
+        return 0;
+    double slope = (S * Stv - St * Sv) / den, icpt = (Sv - slope * St) / S;
+    double sr = 0;
+    for (int i = 0; i < n; i++) {
+        const lead_sample *q = &c->track[(c->track_head + LEAD_HIST - 1 - i) % LEAD_HIST];
+        double r = (use_y ? q->y : q->x) - (icpt + slope * (q->t - t));
+        sr += r * r;
+    }
+    double se = sqrt(sr / (n - 2) * S / den);
+    if (fabs(slope) >= LEAD_MIN_SPEED && fabs(slope) >= 3.0 * se)
+        *v = slope;
+    return 1;
+}
+
+/* Lead room: the subject's velocity relative to the scene decides which
+ * way is "ahead", in any direction; lead room is the share of the free
+ * space around the subject's box that lies ahead of it.  Along one axis
+ * that is the free width (or height) in front over the free width on both
+ * sides; for a slanted path the two axes are weighted by the speed along
+ * each, in pixels, so a subject moving mostly up is judged mostly by the
+ * room above it.  Positions are tracked in scene coordinates (the image
+ * position minus the accumulated camera shift, so panning with a moving
+ * subject still counts). */
+static void lead_room(coach_compose *c, double t, int measured, double shift_fx,
+                      double shift_fy, int full_w, int full_h, coach_result *out)
+{
+    if (measured) {
         c->pan_x += shift_fx;
+        c->pan_y += shift_fy;
+    }
     if (!out->has_subject) {
         c->track_n = 0;
         return;
@@ -151,50 +200,28 @@ static void lead_room(coach_compose *c, double t, int measured, double shift_fx,
     const double x = out->subject.x, y = out->subject.y;
     if (c->track_n > 0) {
         const lead_sample *last = &c->track[(c->track_head + LEAD_HIST - 1) % LEAD_HIST];
-        if (t <= last->t || fabs(x - last->ximg) > TRACK_JUMP || fabs(y - last->y) > TRACK_JUMP)
+        if (t <= last->t || fabs(x - last->ximg) > TRACK_JUMP || fabs(y - last->yimg) > TRACK_JUMP)
             c->track_n = 0;
     }
     lead_sample *sm = &c->track[c->track_head];
     sm->t = t;
     sm->x = x - c->pan_x;
+    sm->y = y - c->pan_y;
     sm->ximg = x;
-    sm->y = y;
+    sm->yimg = y;
     c->track_head = (c->track_head + 1) % LEAD_HIST;
     if (c->track_n < LEAD_HIST)
         c->track_n++;
-    double S = 0, St = 0, Sx = 0, Stt = 0, Stx = 0;
-    int n = 0;
-    double t0 = t;
-    for (int i = 0; i < c->track_n; i++) {
-        const lead_sample *q = &c->track[(c->track_head + LEAD_HIST - 1 - i) % LEAD_HIST];
-        if (t - q->t > LEAD_WINDOW_S)
-            break;
-        double tt = q->t - t0;
-        S += 1;
-        St += tt;
-        Sx += q->x;
-        Stt += tt * tt;
-        Stx += tt * q->x;
-        n++;
-    }
-    double den = S * Stt - St * St;
-    if (n < 6 || den <= 0 || Stt / S - (St / S) * (St / S) < 0.04 * 0.04)
-        return; /* fewer than 6 samples or under ~0.15 s of track */
-    double slope = (S * Stx - St * Sx) / den, icpt = (Sx - slope * St) / S;
-    double sr = 0;
-    for (int i = 0; i < n; i++) {
-        const lead_sample *q = &c->track[(c->track_head + LEAD_HIST - 1 - i) % LEAD_HIST];
-        double r = q->x - (icpt + slope * (q->t - t0));
-        sr += r * r;
-    }
-    double se = sqrt(sr / (n - 2) * S / den);
-    if (fabs(slope) < LEAD_MIN_SPEED || fabs(slope) < 3.0 * se)
+    double vx, vy;
+    if (!track_speed(c, t, 0, &vx) || !track_speed(c, t, 1, &vy))
         return;
-    double left = x - 0.5 * out->subject.w, right = 1.0 - (x + 0.5 * out->subject.w);
-    if (left < 0) left = 0;
-    if (right < 0) right = 0;
-    double ahead = slope > 0 ? right : left, behind = slope > 0 ? left : right;
-    if (ahead + behind <= 0)
+    /* free space on each side of the box, fractions of the frame */
+    double left = fmax(0, x - 0.5 * out->subject.w), right = fmax(0, 1 - (x + 0.5 * out->subject.w));
+    double top = fmax(0, y - 0.5 * out->subject.h), bottom = fmax(0, 1 - (y + 0.5 * out->subject.h));
+    double wx = fabs(vx) * full_w, wy = fabs(vy) * full_h; /* px/s along each axis */
+    double ahead = wx * (vx > 0 ? right : left) + wy * (vy > 0 ? bottom : top);
+    double behind = wx * (vx > 0 ? left : right) + wy * (vy > 0 ? top : bottom);
+    if (!(wx + wy > 0) || ahead + behind <= 0)
         return;
     out->has_lead_room = 1;
     out->lead_room = ahead / (ahead + behind);
@@ -279,7 +306,7 @@ void coach_compose_run(coach_compose *c, const coach_aimg *img, int full_w, int 
         out->has_motion = 1;
         out->motion_px_s = sqrt(dx * dx + dy * dy) * s / (t - c->t_prev);
     }
-    lead_room(c, t, measured, dx * s / full_w, out);
+    lead_room(c, t, measured, dx * s / full_w, dy * s / full_h, full_w, full_h, out);
     c->t_prev = t;
     c->have_t = 1;
 }

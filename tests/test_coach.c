@@ -1607,9 +1607,11 @@ static void test_motion_known_shift(void **state)
 }
 
 /* Lead room (common practice: leave space in front of a moving subject):
- * a subject crossing a still backdrop, and one the camera pans with; the
- * value is the share of the free width ahead of its box, checked against
- * the rendered geometry. */
+ * a subject crossing a still backdrop sideways, one rising or falling, one
+ * the camera pans with; the value is the share of the free width (height)
+ * ahead of its box, checked against the rendered geometry.  A slanted path
+ * weighs both: heading into the open corner reads above one half, into the
+ * near corner below. */
 static void test_lead_room_follows_motion(void **state)
 {
     (void)state;
@@ -1631,6 +1633,32 @@ static void test_lead_room_follows_motion(void **state)
         double truth = (dir > 0 ? right : left) / (left + right);
         assert_true(truth > 0.6);
         assert_true(fabs(r.lead_room - truth) <= 0.05);
+    }
+    const double half_h = rf;
+    for (int dir = -1; dir <= 1; dir += 2) {
+        coach_reset(a);
+        double y = 0.5;
+        for (int i = 0; i < 8; i++) {
+            y = (dir > 0 ? 0.3 : 0.7) + dir * 0.01 * i; /* 0.3 frame heights per second */
+            b_subject(&f, 0.5, y, rf, col);
+            assert_int_equal(coach_analyze(a, &f, i / 30.0, &r), 0);
+        }
+        assert_true(r.has_lead_room);
+        double top = y - half_h, bottom = 1 - (y + half_h);
+        double truth = (dir > 0 ? bottom : top) / (top + bottom);
+        assert_true(truth > 0.6);
+        assert_true(fabs(r.lead_room - truth) <= 0.05);
+    }
+    for (int into_open = 0; into_open < 2; into_open++) {
+        coach_reset(a);
+        for (int i = 0; i < 8; i++) {
+            /* from near the upper-left corner down-right, or back up-left */
+            double k = into_open ? i : 7 - i;
+            b_subject(&f, 0.22 + 0.01 * k, 0.3 + 0.01 * k, rf, col);
+            assert_int_equal(coach_analyze(a, &f, i / 30.0, &r), 0);
+        }
+        assert_true(r.has_lead_room);
+        assert_true(into_open ? r.lead_room > 0.6 : r.lead_room < 0.4);
     }
     /* panning with the subject: it keeps its place in the frame while the
      * backdrop slides left (the camera turns right), so it moves right */
