@@ -1612,6 +1612,19 @@ static void test_motion_known_shift(void **state)
  * ahead of its box, checked against the rendered geometry.  A slanted path
  * weighs both: heading into the open corner reads above one half, into the
  * near corner below. */
+/* Eight frames at 30 fps of the dark disc moving from (x, y) by (dx, dy)
+ * frame fractions a frame, analysed from a reset; *r holds the last. */
+static void b_lead_track(coach_analyzer *a, const coach_frame *f, double x, double y, double dx,
+                         double dy, double rf, coach_result *r)
+{
+    static const uint8_t col[3] = {30, 40, 50};
+    coach_reset(a);
+    for (int i = 0; i < 8; i++) {
+        b_subject(f, x + dx * i, y + dy * i, rf, col);
+        assert_int_equal(coach_analyze(a, f, i / 30.0, r), 0);
+    }
+}
+
 static void test_lead_room_follows_motion(void **state)
 {
     (void)state;
@@ -1620,46 +1633,25 @@ static void test_lead_room_follows_motion(void **state)
     static coach_result r;
     coach_analyzer *a = b_analyzer(COACH_GRID_THIRDS);
     const double rf = 0.08, half_w = rf * 540 / 960;
-    for (int dir = -1; dir <= 1; dir += 2) {
-        coach_reset(a);
-        double x = 0.5;
-        for (int i = 0; i < 8; i++) {
-            x = (dir > 0 ? 0.25 : 0.75) + dir * 0.01 * i; /* 0.3 frame widths per second */
-            b_subject(&f, x, 0.5, rf, col);
-            assert_int_equal(coach_analyze(a, &f, i / 30.0, &r), 0);
+    /* sideways (axis 0) and up or down (axis 1), 0.01 of the frame a frame:
+     * 0.3 frame widths or heights per second */
+    for (int axis = 0; axis < 2; axis++)
+        for (int dir = -1; dir <= 1; dir += 2) {
+            double p0 = dir > 0 ? 0.3 : 0.7, p = p0 + dir * 0.07; /* last position */
+            b_lead_track(a, &f, axis ? 0.5 : p0, axis ? p0 : 0.5, axis ? 0 : dir * 0.01,
+                         axis ? dir * 0.01 : 0, rf, &r);
+            double half = axis ? rf : rf * 540 / 960, lo = p - half, hi = 1 - (p + half);
+            double truth = (dir > 0 ? hi : lo) / (lo + hi);
+            assert_true(r.has_lead_room);
+            assert_true(truth > 0.6);
+            assert_true(fabs(r.lead_room - truth) <= 0.05);
         }
-        assert_true(r.has_lead_room);
-        double left = x - half_w, right = 1 - (x + half_w);
-        double truth = (dir > 0 ? right : left) / (left + right);
-        assert_true(truth > 0.6);
-        assert_true(fabs(r.lead_room - truth) <= 0.05);
-    }
-    const double half_h = rf;
-    for (int dir = -1; dir <= 1; dir += 2) {
-        coach_reset(a);
-        double y = 0.5;
-        for (int i = 0; i < 8; i++) {
-            y = (dir > 0 ? 0.3 : 0.7) + dir * 0.01 * i; /* 0.3 frame heights per second */
-            b_subject(&f, 0.5, y, rf, col);
-            assert_int_equal(coach_analyze(a, &f, i / 30.0, &r), 0);
-        }
-        assert_true(r.has_lead_room);
-        double top = y - half_h, bottom = 1 - (y + half_h);
-        double truth = (dir > 0 ? bottom : top) / (top + bottom);
-        assert_true(truth > 0.6);
-        assert_true(fabs(r.lead_room - truth) <= 0.05);
-    }
-    for (int into_open = 0; into_open < 2; into_open++) {
-        coach_reset(a);
-        for (int i = 0; i < 8; i++) {
-            /* from near the upper-left corner down-right, or back up-left */
-            double k = into_open ? i : 7 - i;
-            b_subject(&f, 0.22 + 0.01 * k, 0.3 + 0.01 * k, rf, col);
-            assert_int_equal(coach_analyze(a, &f, i / 30.0, &r), 0);
-        }
-        assert_true(r.has_lead_room);
-        assert_true(into_open ? r.lead_room > 0.6 : r.lead_room < 0.4);
-    }
+    /* a slanted path from near the upper-left corner down-right, or the
+     * same path back up-left */
+    b_lead_track(a, &f, 0.22, 0.3, 0.01, 0.01, rf, &r);
+    assert_true(r.has_lead_room && r.lead_room > 0.6);
+    b_lead_track(a, &f, 0.29, 0.37, -0.01, -0.01, rf, &r);
+    assert_true(r.has_lead_room && r.lead_room < 0.4);
     /* panning with the subject: it keeps its place in the frame while the
      * backdrop slides left (the camera turns right), so it moves right */
     {
