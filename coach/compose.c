@@ -2,6 +2,13 @@
  * balance and edge intrusions (saliency.c), steadiness (motion.c), and here
  * the parts that combine them: placement against the power points, lead
  * room from the subject's motion relative to the scene, and subject focus.
+ *
+ * Where the time goes (1080p frames, 320x180 analysis image, one core):
+ * the whole stage took ~1.0-1.3 ms and 9.5 M instructions per frame in the
+ * bench build (15 M in the -O2 release build); with its kernels vectorised,
+ * fused and given AVX2 copies ~0.55-0.65 ms and 5.1 M (4.7 M).  Level ~45 %
+ * of it, saliency ~35 %, motion ~15 %; a good part of what is left is
+ * reading the analysis planes (1.4 MB) from memory.
  */
 #include <math.h>
 #include <stdlib.h>

@@ -86,7 +86,11 @@ coach_saliency *coach_saliency_create(int max_w, int max_h)
         return NULL;
     s->max_w = max_w;
     s->max_h = max_h;
-    s->rows = malloc((size_t)max_w * N * 4 * sizeof(float));
+#ifdef __SSE2__
+    s->rows = malloc((size_t)max_w * 4 * sizeof(float));
+#else
+    s->rows = malloc((size_t)max_w * N * sizeof(float));
+#endif
     s->regions = malloc(MAX_CAND * sizeof(region));
     for (int q = 0; q < N; q++)
         s->cos2[q] = (float)(2.0 * cos(2.0 * M_PI * q / N));
