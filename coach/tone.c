@@ -361,10 +361,13 @@ colour_acc16(colour_vec *cv, __m256i R, __m256i G, __m256i B, __m256i Y, int x,
     }
 }
 
-__attribute__((target("avx2"))) static void colour_reduce(const colour_vec *cv, colour_sums *cs)
+/* By value, inlined: the accumulators' address must not escape, or they
+ * stop living in registers across the loop. */
+__attribute__((target("avx2"))) static inline __attribute__((always_inline)) void
+colour_reduce(colour_vec cv, colour_sums *cs)
 {
     int32_t lane[8];
-    const __m256i sums[4] = { cv->srg, cv->syb, cv->qrg, cv->qyb };
+    const __m256i sums[4] = { cv.srg, cv.syb, cv.qrg, cv.qyb };
     int32_t tot[4] = { 0, 0, 0, 0 };
     for (int k = 0; k < 4; k++) {
         _mm256_storeu_si256((__m256i *)lane, sums[k]);
@@ -439,7 +442,7 @@ packed_avx2(const uint8_t *restrict p, int pk, int x0, int x1, uint8_t *restrict
         _mm_storeu_si128((__m128i *)(y + x), _mm256_castsi256_si128(y8));
         colour_acc16(&cv, R, G, B, Y, x, ar, ag, ab, ay, first, acc);
     }
-    colour_reduce(&cv, cs);
+    colour_reduce(cv, cs);
     if (x < x1) /* the last few pixels */
         packed_fused_k(p, pk, x, x1, y, ar, ag, ab, ay, first, acc, cs);
 }
@@ -640,7 +643,7 @@ yuv_avx2(const uint8_t *restrict p, const uint8_t *restrict pc, int nv12, const 
     cs->syb += tsyb;
     cs->qrg += tqrg;
     cs->qyb += tqyb;
-    colour_reduce(&cv, cs);
+    colour_reduce(cv, cs);
 }
 
 __attribute__((target("avx2"))) static void
