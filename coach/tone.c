@@ -118,7 +118,8 @@ static void *xalloc(size_t n)
     return aligned_alloc(64, (n + 63) & ~(size_t)63);
 }
 
-static void free_bufs(coach_tone *t)
+/* The row buffers (made for a width); the planes are sized apart. */
+static void free_rows(coach_tone *t)
 {
     free(t->r);
     free(t->ring);
@@ -127,13 +128,18 @@ static void free_bufs(coach_tone *t)
     free(t->accl);
     free(t->accq);
     free(t->tmp);
-    free(t->planes);
-    t->r = t->ring = NULL;
+    t->r = t->g = t->b = t->ring = NULL;
     t->lap = NULL;
     t->acc = NULL;
     t->accl = t->accq = t->tmp = NULL;
-    t->planes = NULL;
     t->cap_w = 0;
+}
+
+static void free_bufs(coach_tone *t)
+{
+    free_rows(t);
+    free(t->planes);
+    t->planes = NULL;
     t->cap_plane = 0;
 }
 
@@ -141,13 +147,7 @@ static int grow_rows(coach_tone *t, int w)
 {
     if (w <= t->cap_w)
         return 0;
-    free(t->r);
-    free(t->ring);
-    free(t->lap);
-    free(t->acc);
-    free(t->accl);
-    free(t->accq);
-    free(t->tmp);
+    free_rows(t);
     size_t W = (size_t)w + 64; /* slack: loops may read a little past w */
     t->r = xalloc(3 * W);
     t->ring = xalloc(3 * W);
